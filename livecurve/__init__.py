@@ -1,0 +1,13 @@
+"""livecurve: preview analog video-processing circuits on moving pictures.
+
+Data path (one frame): decode (``media``) → component volts (``signal``) →
+chain of circuit stages (``circuit`` builds tables, ``engine`` applies them per
+pixel and per line) → back to code values (``signal``) → window or encoder
+(``app``, ``media``), with monitors (``monitors``) and control sources
+(``control``) on the side.
+"""
+
+from livecurve.errors import LivecurveError
+
+__version__ = "0.1.0"
+__all__ = ["LivecurveError", "__version__"]

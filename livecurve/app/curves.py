@@ -1,0 +1,63 @@
+"""DC transfer curves of a chain to CSV and PNG, and SPICE decks to disk.
+
+Both come straight from the DC solver (``ChainModel.transfer``), the same source of
+truth the tables and the exported deck use.
+"""
+
+from __future__ import annotations
+
+import io
+
+import numpy as np
+
+from livecurve.circuit.chain import ChainModel
+from livecurve.circuit.spice import chain_deck
+from livecurve.config.chainfile import ChainSpec
+from livecurve.media.atomic import atomic_output
+from livecurve.signal.component import channel_names
+
+CSV_HEADER = "input_v,out0_v,out1_v,out2_v"
+
+
+def sweep_points(spec: ChainSpec, points: int) -> np.ndarray:
+    """The uniform sweep over the chain's range, volts (same points as the deck's ``.dc``)."""
+    lo, hi = spec.sweep_v
+    return np.linspace(lo, hi, points)
+
+
+def curves(spec: ChainSpec, *, points: int = 501, t_kelvin: float | None = None,
+           live: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """(input volts (N,), outputs (3, N)) of every channel."""
+    vin = sweep_points(spec, points)
+    return vin, ChainModel(spec).transfer_all(vin, t_kelvin=t_kelvin, live=live)
+
+
+def write_curve_csv(path, vin: np.ndarray, vout: np.ndarray, *, force: bool = True) -> None:
+    """CSV with header ``input_v,out0_v,out1_v,out2_v``, one row per sweep point."""
+    buf = io.StringIO()
+    buf.write(CSV_HEADER + "\n")
+    np.savetxt(buf, np.column_stack([vin, vout.T]), fmt="%.9g", delimiter=",")
+    with atomic_output(path, force=force) as tmp:
+        tmp.write_text(buf.getvalue())
+
+
+def write_curve_png(path, vin, vout, spec: ChainSpec, *, title: str = "",
+                    force: bool = True) -> None:
+    """Plot of the three channel curves, output volts against input volts."""
+    from livecurve.app.plot import line_plot, write_png
+    names = channel_names(spec.space)
+    img = line_plot(vin, list(vout), labels=[f"{i}: {n}" for i, n in enumerate(names)],
+                    title=title or f"{spec.title}: DC transfer", xlabel="input (V)",
+                    ylabel="output (V)")
+    write_png(path, img, force=force)
+
+
+def write_spice(path, spec: ChainSpec, *, t_kelvin: float | None = None,
+                live: dict | None = None, points: int = 501, force: bool = True,
+                data_file: str | None = None) -> str:
+    """Write the chain's self-contained ngspice deck; returns its text."""
+    text = chain_deck(ChainModel(spec), t_kelvin=t_kelvin, live=live, points=points,
+                      data_file=data_file)
+    with atomic_output(path, force=force) as tmp:
+        tmp.write_text(text)
+    return text

@@ -1,0 +1,254 @@
+"""A small stage netlist: named nodes, textbook elements, compiled for the solver.
+
+Elements (SPICE conventions for names and signs):
+
+========  =========================================================  ==============
+kind      meaning                                                    SPICE card
+========  =========================================================  ==============
+R         resistor between two nodes, ohms                           ``R``
+I         current source, amps flowing *from* node a *through* it    ``I``
+          *to* node b
+V         voltage source, v(a) − v(b) = volts                         ``V``
+VIN       the swept input source (``in`` to ground)                  ``V`` (VIN)
+D         Shockley diode a→c with a :class:`DiodeModel`              ``D`` + .model
+Q         NPN/PNP BJT (c, b, e) with a :class:`BjtModel`             ``Q`` + .model
+OA        op-amp (+, −, out): out = mid + half·tanh(A·vd/half),      ``B`` source
+          output swing set by the rails less a headroom
+E         linear voltage-controlled voltage source                   ``E``
+========  =========================================================  ==============
+
+Every stage has an input node ``in`` (driven by VIN) and an output node ``out``.
+Series resistances of junctions (diode RS, BJT RE/RB/RC) become internal nodes
+and resistors when compiled, exactly as SPICE treats them.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from livecurve.circuit import solver as _s
+from livecurve.circuit.devices import BjtModel, DiodeModel, thermal_voltage
+from livecurve.errors import ConfigError, SolverError
+
+GROUND = ("0", "gnd", "GND")
+
+
+@dataclass
+class Element:
+    """One element: kind, name, node names and SI parameters."""
+
+    kind: str
+    name: str
+    nodes: tuple[str, ...]
+    value: float = 0.0
+    model: DiodeModel | BjtModel | None = None
+    extra: dict = field(default_factory=dict)
+
+
+@dataclass
+class Compiled:
+    """Arrays the solver kernel takes, at one temperature."""
+
+    kinds: np.ndarray
+    nodes: np.ndarray
+    params: np.ndarray
+    branch: np.ndarray
+    n_nodes: int
+    n_unknowns: int
+    node_index: dict
+    out_index: int
+
+
+class Netlist:
+    """Builder for a stage netlist.
+
+    Parameters
+    ----------
+    name : str
+        Stage name, used in messages and as a prefix in SPICE decks.
+    """
+
+    def __init__(self, name: str = "stage"):
+        self.name = name
+        self.elements: list[Element] = []
+
+    # ---- building -------------------------------------------------------------------
+    def _add(self, el: Element) -> Element:
+        if any(e.name == el.name for e in self.elements):
+            raise ConfigError(f"element name '{el.name}' used twice in stage '{self.name}'",
+                              key=f"{self.name}.{el.name}")
+        self.elements.append(el)
+        return el
+
+    def resistor(self, name: str, a: str, b: str, r_ohm: float) -> Element:
+        if not (r_ohm > 0.0) or not math.isfinite(r_ohm):
+            raise ConfigError("a resistance must be finite and above zero ohms",
+                              key=f"{self.name}.{name}", value=r_ohm)
+        return self._add(Element("R", name, (a, b), float(r_ohm)))
+
+    def current(self, name: str, a: str, b: str, i_amp: float) -> Element:
+        """Current source: *i_amp* flows from node *a* through the source into node *b*."""
+        return self._add(Element("I", name, (a, b), float(i_amp)))
+
+    def voltage(self, name: str, a: str, b: str, v_volt: float) -> Element:
+        return self._add(Element("V", name, (a, b), float(v_volt)))
+
+    def vin(self) -> Element:
+        return self._add(Element("VIN", "VIN", ("in", "0"), 0.0))
+
+    def diode(self, name: str, anode: str, cathode: str, model: DiodeModel) -> Element:
+        model.check(f"{self.name}.{name}")
+        return self._add(Element("D", name, (anode, cathode), model=model))
+
+    def bjt(self, name: str, c: str, b: str, e: str, model: BjtModel) -> Element:
+        model.check(f"{self.name}.{name}")
+        return self._add(Element("Q", name, (c, b, e), model=model))
+
+    def opamp(self, name: str, plus: str, minus: str, out: str, *, a_ol: float,
+              v_pos_v: float, v_neg_v: float, headroom_v: float) -> Element:
+        """Op-amp with open-loop gain *a_ol* whose output swings between the rails less *headroom_v*."""
+        hi, lo = v_pos_v - headroom_v, v_neg_v + headroom_v
+        if not hi > lo:
+            raise ConfigError("rails less headroom leave no output swing",
+                              key=f"{self.name}.{name}", value=(v_neg_v, v_pos_v, headroom_v))
+        if not a_ol > 0:
+            raise ConfigError("open-loop gain must be above zero", key=f"{self.name}.{name}",
+                              value=a_ol)
+        return self._add(Element("OA", name, (plus, minus, out), float(a_ol),
+                                 extra={"hi": hi, "lo": lo}))
+
+    def vcvs(self, name: str, plus: str, minus: str, out: str, ref: str, gain: float) -> Element:
+        return self._add(Element("E", name, (plus, minus, out, ref), float(gain)))
+
+    # ---- compiling ------------------------------------------------------------------
+    def node_names(self) -> list[str]:
+        names: list[str] = []
+        for el in self.elements:
+            for n in el.nodes:
+                if n not in GROUND and n not in names:
+                    names.append(n)
+        return names
+
+    def compile(self, t_kelvin: float) -> Compiled:
+        """Arrays for the solver at junction temperature *t_kelvin* (device laws applied)."""
+        idx: dict[str, int] = {}
+
+        def node(n: str) -> int:
+            if n in GROUND:
+                return -1
+            if n not in idx:
+                idx[n] = len(idx)
+            return idx[n]
+
+        if "in" not in self.node_names() or "out" not in self.node_names():
+            raise ConfigError("a stage netlist needs nodes 'in' and 'out'", key=self.name)
+        rows: list[tuple[int, tuple[int, int, int, int], list[float], bool]] = []
+        vt = thermal_voltage(t_kelvin)
+        for el in self.elements:
+            if el.kind == "R":
+                rows.append((_s.K_R, (node(el.nodes[0]), node(el.nodes[1]), -1, -1),
+                             [1.0 / el.value], False))
+            elif el.kind == "I":
+                rows.append((_s.K_I, (node(el.nodes[0]), node(el.nodes[1]), -1, -1),
+                             [el.value], False))
+            elif el.kind in ("V", "VIN"):
+                kind = _s.K_VIN if el.kind == "VIN" else _s.K_V
+                rows.append((kind, (node(el.nodes[0]), node(el.nodes[1]), -1, -1),
+                             [el.value], True))
+            elif el.kind == "D":
+                m: DiodeModel = el.model
+                a, c = el.nodes
+                if m.rs_ohm > 0:
+                    inner = f"{el.name}#a"
+                    rows.append((_s.K_R, (node(a), node(inner), -1, -1), [1.0 / m.rs_ohm],
+                                 False))
+                    a = inner
+                is_t = m.is_at(t_kelvin)
+                nvt = m.n * vt
+                vcrit = nvt * math.log(nvt / (math.sqrt(2.0) * is_t))
+                rows.append((_s.K_D, (node(a), node(c), -1, -1), [is_t, nvt, vcrit], False))
+            elif el.kind == "Q":
+                m: BjtModel = el.model
+                c, b, e = el.nodes
+                for rname, term in (("rc_ohm", "c"), ("rb_ohm", "b"), ("re_ohm", "e")):
+                    r = getattr(m, rname)
+                    if r > 0:
+                        outer = {"c": c, "b": b, "e": e}[term]
+                        inner = f"{el.name}#{term}"
+                        rows.append((_s.K_R, (node(outer), node(inner), -1, -1), [1.0 / r],
+                                     False))
+                        if term == "c":
+                            c = inner
+                        elif term == "b":
+                            b = inner
+                        else:
+                            e = inner
+                is_t = m.is_at(t_kelvin)
+                bfac = m.beta_factor(t_kelvin)
+                vtf, vtr = m.nf * vt, m.nr * vt
+                pol = 1.0 if m.polarity == "npn" else -1.0
+                rows.append((_s.K_Q, (node(c), node(b), node(e), -1),
+                             [is_t, m.bf * bfac, m.br * bfac, vtf, vtr, pol,
+                              vtf * math.log(vtf / (math.sqrt(2.0) * is_t)),
+                              vtr * math.log(vtr / (math.sqrt(2.0) * is_t))], False))
+            elif el.kind == "OA":
+                hi, lo = el.extra["hi"], el.extra["lo"]
+                p, n_, o = el.nodes
+                rows.append((_s.K_OA, (node(p), node(n_), node(o), -1),
+                             [el.value, 0.5 * (hi + lo), 0.5 * (hi - lo)], True))
+            elif el.kind == "E":
+                p, n_, o, r = el.nodes
+                rows.append((_s.K_E, (node(p), node(n_), node(o), node(r)), [el.value], True))
+        n_nodes = len(idx)
+        kinds = np.array([r[0] for r in rows], dtype=np.int64)
+        nodes = np.array([r[1] for r in rows], dtype=np.int64).reshape(-1, 4)
+        params = np.zeros((len(rows), 8))
+        branch = np.full(len(rows), -1, dtype=np.int64)
+        nb_ = 0
+        for k, r in enumerate(rows):
+            params[k, :len(r[2])] = r[2]
+            if r[3]:
+                branch[k] = n_nodes + nb_
+                nb_ += 1
+        return Compiled(kinds, nodes, params, branch, n_nodes, n_nodes + nb_, dict(idx),
+                        idx["out"])
+
+
+def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,
+                node: str = "out", strict: bool = True) -> np.ndarray:
+    """DC solution of a stage netlist at each input voltage.
+
+    Parameters
+    ----------
+    net : Netlist or Compiled
+        The stage (compiled at *t_kelvin* if a Netlist).
+    vin_v : array_like, shape (N,)
+        Input voltages in sweep order (volts); neighbouring values warm-start each other.
+    t_kelvin : float
+        Junction temperature, kelvin.
+    node : str
+        Which node's voltage to return (``"out"`` by default); ``"*"`` returns all unknowns.
+    strict : bool
+        Raise :class:`SolverError` if any point fails to converge (else NaN there).
+
+    Returns
+    -------
+    ndarray, shape (N,) float64 volts (or (N, n_unknowns) for ``node="*"``).
+    """
+    comp = net.compile(t_kelvin) if isinstance(net, Netlist) else net
+    vin = np.ascontiguousarray(np.atleast_1d(np.asarray(vin_v, dtype=np.float64)))
+    xs = np.empty((vin.shape[0], comp.n_unknowns))
+    ok = np.zeros(vin.shape[0], dtype=np.bool_)
+    _s._solve_sweep(comp.kinds, comp.nodes, comp.params, comp.branch, comp.n_nodes, vin,
+                    np.zeros(comp.n_unknowns), xs, ok)
+    if strict and not ok.all():
+        bad = vin[~ok]
+        name = net.name if isinstance(net, Netlist) else "netlist"
+        raise SolverError(f"DC solver did not converge for stage '{name}' at input "
+                          f"{bad[0]:.6g} V ({(~ok).sum()} of {len(vin)} points)")
+    if node == "*":
+        return xs
+    return xs[:, comp.node_index[node]]

@@ -1,0 +1,108 @@
+"""A stage written directly as SPICE-like element lines.
+
+Grammar (a subset of the SPICE netlist card format, Nagel 1975; values take the
+engineering units of :mod:`livecurve.units`)::
+
+    R<name> <a> <b> <ohms>
+    I<name> <from> <to> <amps>          current flows from <from> through the source to <to>
+    V<name> <plus> <minus> <volts>
+    D<name> <anode> <cathode> <model>
+    Q<name> <c> <b> <e> <model>
+    E<name> <out> <ref> <plus> <minus> <gain>
+    U<name> <plus> <minus> <out>        the chain's op-amp
+
+Node ``in`` is driven by the input, node ``out`` is the stage output, ``0`` is
+ground.  Models are declared in the stage's ``models`` table.
+"""
+
+from __future__ import annotations
+
+from livecurve.circuit.devices import BjtModel, DiodeModel
+from livecurve.circuit.netlist import Netlist
+from livecurve.circuit.stages import OpampSpec
+from livecurve.errors import ConfigError
+from livecurve.units import parse_value
+
+_ARITY = {"R": 3, "I": 3, "V": 3, "D": 3, "Q": 4, "E": 5, "U": 3}
+_UNIT = {"R": "ohm", "I": "A", "V": "V", "E": ""}
+
+
+def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
+                     path: str | None = None, values: dict | None = None) -> Netlist:
+    """Build a netlist from element lines.
+
+    Parameters
+    ----------
+    lines : list of str
+        Element cards as above.
+    models : dict
+        Model name → DiodeModel or BjtModel.
+    values : dict, optional
+        Element name (lower case) → SI value overriding the card's value (used for
+        per-channel overrides and live parameters, addressed as ``<stage>.<element>``).
+    """
+    net = Netlist(name)
+    net.vin()
+    values = values or {}
+    for i, raw in enumerate(lines):
+        k = f"{key}[{i}]"
+        card = raw.split(";")[0].split()
+        if not card:
+            continue
+        ename = card[0]
+        letter = ename[0].upper()
+        if letter not in _ARITY:
+            raise ConfigError("unknown element letter; accepted: R I V D Q E U", path=path,
+                              key=k, value=raw)
+        if len(card) != _ARITY[letter] + 1:
+            raise ConfigError(f"'{letter}' takes {_ARITY[letter]} fields after the name",
+                              path=path, key=k, value=raw)
+        f = card[1:]
+        if ename.upper() == "VIN":
+            raise ConfigError("VIN is the input source and is added for you", path=path, key=k,
+                              value=raw)
+        if letter in _UNIT:
+            v = values.get(ename.lower())
+            if v is None:
+                v = parse_value(f[-1], _UNIT[letter], key=k, path=path)
+            if letter == "R":
+                if not v > 0:
+                    raise ConfigError("a resistance must be above zero ohms", path=path, key=k,
+                                      value=f[-1])
+                net.resistor(ename, f[0], f[1], v)
+            elif letter == "I":
+                net.current(ename, f[0], f[1], v)
+            elif letter == "V":
+                net.voltage(ename, f[0], f[1], v)
+            else:
+                net.vcvs(ename, f[2], f[3], f[0], f[1], v)
+        elif letter in ("D", "Q"):
+            m = models.get(f[-1])
+            want = DiodeModel if letter == "D" else BjtModel
+            if not isinstance(m, want):
+                raise ConfigError(f"model '{f[-1]}' is not a declared "
+                                  f"{'diode' if letter == 'D' else 'bjt'} model", path=path,
+                                  key=k, value=raw)
+            if letter == "D":
+                net.diode(ename, f[0], f[1], m)
+            else:
+                net.bjt(ename, f[0], f[1], f[2], m)
+        else:
+            net.opamp(ename, f[0], f[1], f[2], a_ol=op.a_ol, v_pos_v=op.v_pos_v,
+                      v_neg_v=op.v_neg_v, headroom_v=op.headroom_v)
+    nodes = net.node_names()
+    if "out" not in nodes:
+        raise ConfigError("the netlist has no node 'out'", path=path, key=key)
+    if sum(1 for e in net.elements if "in" in e.nodes) < 2:
+        raise ConfigError("nothing is connected to node 'in'", path=path, key=key)
+    return net
+
+
+def element_values(lines) -> dict:
+    """Element name (lower case) → the value text on its card, for R/I/V/E cards."""
+    out = {}
+    for raw in lines:
+        card = raw.split(";")[0].split()
+        if card and card[0][0].upper() in _UNIT and len(card) >= 4:
+            out[card[0].lower()] = (card[0][0].upper(), card[-1])
+    return out

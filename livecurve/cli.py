@@ -1,0 +1,133 @@
+"""Command line: argument parsing only; each verb calls one function of the package."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from livecurve.errors import LivecurveError
+
+
+def _chain(path):
+    from livecurve.config.chainfile import load_chain
+    return load_chain(path)
+
+
+def _temp(args):
+    from livecurve.units import parse_temperature_k
+    return None if args.temp_c is None else parse_temperature_k(args.temp_c, key="--temp-c")
+
+
+def _live(spec, args):
+    """--control V sets every live knob's value? No: --set NAME=VALUE sets knobs by name."""
+    from livecurve.errors import ConfigError
+    from livecurve.units import parse_value
+    out = {}
+    for item in getattr(args, "set", None) or []:
+        if "=" not in item:
+            raise ConfigError("expected NAME=VALUE", key="--set", value=item)
+        name, val = item.split("=", 1)
+        if name not in spec.live:
+            raise ConfigError(f"no live parameter '{name}'; live: "
+                              f"{', '.join(spec.live) or 'none'}", key="--set", value=item)
+        ls = spec.live[name]
+        v = parse_value(val, ls.unit, key=f"--set {name}")
+        if not ls.lo <= v <= ls.hi:
+            raise ConfigError(f"outside {ls.lo:g} … {ls.hi:g}", key=f"--set {name}", value=val)
+        out[name] = v
+    return out or None
+
+
+def cmd_check(args) -> int:
+    from livecurve.app.report import chain_summary
+    from livecurve.engine.pipeline import FrameEngine
+    spec = _chain(args.chain)
+    eng = FrameEngine(spec)
+    print(chain_summary(spec, eng))
+    return 0
+
+
+def cmd_curve(args) -> int:
+    from livecurve.app import curves
+    spec = _chain(args.chain)
+    if args.step:
+        from livecurve.app.steps import write_steps
+        write_steps(spec, csv=args.csv, png=args.png, force=True)
+        return 0
+    if not (args.csv or args.png):
+        raise LivecurveError("curve: give --csv OUT.csv and/or --png OUT.png")
+    vin, vout = curves.curves(spec, points=args.points, t_kelvin=_temp(args),
+                              live=_live(spec, args))
+    if args.csv:
+        curves.write_curve_csv(args.csv, vin, vout)
+        print(f"wrote {args.csv} ({len(vin)} points)")
+    if args.png:
+        curves.write_curve_png(args.png, vin, vout, spec)
+        print(f"wrote {args.png}")
+    return 0
+
+
+def cmd_export(args) -> int:
+    spec = _chain(args.chain)
+    if not (args.spice or args.clf):
+        raise LivecurveError("export: give --spice OUT.cir and/or --clf OUT.clf")
+    if args.spice:
+        from livecurve.app.curves import write_spice
+        write_spice(args.spice, spec, t_kelvin=_temp(args), live=_live(spec, args),
+                    points=args.points, force=True)
+        print(f"wrote {args.spice}")
+    if args.clf:
+        from livecurve.app.lut import write_clf
+        write_clf(args.clf, spec, t_kelvin=_temp(args), live=_live(spec, args), force=True)
+        print(f"wrote {args.clf}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="livecurve",
+        description="Preview analog video-processing circuits on moving pictures.")
+    sub = p.add_subparsers(dest="verb", required=True)
+
+    c = sub.add_parser("check", help="validate a chain file and print its summary")
+    c.add_argument("chain")
+    c.set_defaults(func=cmd_check)
+
+    c = sub.add_parser("curve", help="DC transfer (or step response) of every channel")
+    c.add_argument("chain")
+    c.add_argument("--csv")
+    c.add_argument("--png")
+    c.add_argument("--points", type=int, default=501)
+    c.add_argument("--temp-c", help="junction temperature, e.g. 40 or 40C (default: ambient)")
+    c.add_argument("--set", action="append", metavar="NAME=VALUE",
+                   help="set a live parameter, e.g. --set knee=80uA")
+    c.add_argument("--step", action="store_true",
+                   help="write each channel's step response instead (line-rate dynamics)")
+    c.set_defaults(func=cmd_curve)
+
+    c = sub.add_parser("export", help="write a SPICE deck and/or a CLF LUT of the chain")
+    c.add_argument("chain")
+    c.add_argument("--spice", metavar="OUT.cir")
+    c.add_argument("--clf", metavar="OUT.clf")
+    c.add_argument("--points", type=int, default=501)
+    c.add_argument("--temp-c")
+    c.add_argument("--set", action="append", metavar="NAME=VALUE")
+    c.set_defaults(func=cmd_export)
+    return p
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args) or 0)
+    except LivecurveError as exc:
+        print(f"livecurve: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("livecurve: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,149 @@
+"""Values with units as engineers write them: ``"10k"``, ``"4k7"``, ``"4.7uA"``,
+``"2.2n"``, ``"-12V"``, ``"35C"``, ``"1meg"``.
+
+SI prefixes (BIPM SI Brochure, 9th ed.): f p n u/µ m k M G T, plus SPICE's ``meg``.
+``m`` is milli and ``M`` is mega, as on schematics (SPICE itself is case-blind and
+needs ``meg``; livecurve accepts both ``M`` and ``meg``).  The "R notation"
+(``4k7`` = 4.7 k, ``2R2`` = 2.2) is common practice on schematics and BOMs.
+
+Every parser returns a plain SI float (ohms, amps, volts, farads, hertz,
+seconds, kelvin) and raises :class:`~livecurve.errors.UnitError` naming the
+key and the value when it cannot.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+from livecurve.errors import UnitError
+
+_PREFIX = {
+    "f": 1e-15, "p": 1e-12, "n": 1e-9, "u": 1e-6, "µ": 1e-6, "μ": 1e-6, "m": 1e-3,
+    "": 1.0, "k": 1e3, "K": 1e3, "M": 1e6, "meg": 1e6, "Meg": 1e6, "MEG": 1e6,
+    "G": 1e9, "T": 1e12,
+}
+
+#: Unit symbols accepted for each quantity (the symbol may be omitted).
+UNITS = {
+    "ohm": ("ohm", "ohms", "Ω", "R", "r"),
+    "A": ("A",),
+    "V": ("V",),
+    "F": ("F",),
+    "Hz": ("Hz",),
+    "s": ("s",),
+    "W": ("W",),
+    "K/W": ("K/W", "C/W", "°C/W"),
+    "V/us": ("V/us", "V/µs"),
+    "eV": ("eV",),
+    "": ("",),
+}
+
+_NUM = r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?"
+_PREFIXES = "meg|Meg|MEG|[fpnuµμmkKMGT]"
+_RE_PLAIN = re.compile(rf"^\s*({_NUM})\s*({_PREFIXES})?\s*([A-Za-zΩ°/]*)\s*$")
+# R notation: the prefix (or R) stands where the decimal point goes: 4k7, 2R2, 1M5.
+_RE_RNOT = re.compile(r"^\s*([+-]?)(\d+)(meg|[fpnuµmkKMGR])(\d+)\s*([A-Za-zΩ]*)\s*$")
+
+
+def parse_value(value, unit: str = "", *, key: str | None = None, path: str | None = None) -> float:
+    """Read a number with an optional SI prefix and unit symbol.
+
+    Parameters
+    ----------
+    value : str or float or int
+        ``"10k"``, ``"4.7uA"``, ``"-12V"``, ``"4k7"``, ``1e-6`` …
+    unit : str
+        Expected quantity, a key of :data:`UNITS` (``"ohm"``, ``"A"``, ``"V"``, ``"F"``,
+        ``"Hz"``, ``"s"``, ``"W"``, ``"K/W"``, ``"V/us"``, ``"eV"``, or ``""`` for a
+        bare number).  A unit symbol in the text must match it.
+    key, path : str, optional
+        Where the value came from, for the error message.
+
+    Returns
+    -------
+    float
+        The value in SI base units (``"V/us"`` values are returned in V/µs as written).
+    """
+    if isinstance(value, bool):
+        raise UnitError(f"expected a number{_unit_hint(unit)}, got a boolean", key=key,
+                        path=path, value=value)
+    if isinstance(value, (int, float)):
+        x = float(value)
+    elif isinstance(value, str):
+        x = _parse_text(value, unit, key=key, path=path)
+    else:
+        raise UnitError(f"expected a number{_unit_hint(unit)}", key=key, path=path, value=value)
+    if not math.isfinite(x):
+        raise UnitError("value must be finite", key=key, path=path, value=value)
+    return x
+
+
+def _unit_hint(unit: str) -> str:
+    return f" in {unit} (e.g. '10k', '4.7u{unit}')" if unit else ""
+
+
+def _parse_text(text: str, unit: str, *, key, path) -> float:
+    accepted = UNITS.get(unit)
+    if accepted is None:
+        raise ValueError(f"unknown unit kind {unit!r}")
+    m = _RE_RNOT.match(text)
+    if m:
+        sign, whole, pfx, frac, sym = m.groups()
+        mult = 1.0 if pfx == "R" else _PREFIX[pfx]
+        _check_symbol(sym, unit, accepted, text, key, path)
+        x = float(f"{whole}.{frac}") * mult
+        return -x if sign == "-" else x
+    m = _RE_PLAIN.match(text)
+    if not m:
+        raise UnitError(f"cannot read this as a number{_unit_hint(unit)}", key=key, path=path,
+                        value=text)
+    num, pfx, sym = m.group(1), m.group(2) or "", m.group(3)
+    # "mA" reads as prefix m + symbol A; a lone prefix letter ("10m") is a prefix.
+    _check_symbol(sym, unit, accepted, text, key, path)
+    return float(num) * _PREFIX[pfx]
+
+
+def _check_symbol(sym: str, unit: str, accepted, text, key, path) -> None:
+    if sym == "" or sym in accepted:
+        return
+    if sym.lower() in {a.lower() for a in accepted if a}:
+        return
+    want = "/".join(a for a in accepted if a) or "no unit"
+    raise UnitError(f"unit '{sym}' does not fit here; expected {want}", key=key, path=path,
+                    value=text)
+
+
+def parse_temperature_k(value, *, key: str | None = None, path: str | None = None) -> float:
+    """Read a temperature (``"35C"``, ``"35 °C"``, ``"308.15K"``, or a bare number in °C).
+
+    Returns
+    -------
+    float
+        Kelvin.  Below 0 K is refused.
+    """
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        t = float(value) + 273.15
+    elif isinstance(value, str):
+        m = re.match(rf"^\s*({_NUM})\s*(°?C|K|degC)?\s*$", value)
+        if not m:
+            raise UnitError("cannot read this as a temperature (e.g. '35C' or '300K')",
+                            key=key, path=path, value=value)
+        t = float(m.group(1))
+        t = t if m.group(2) == "K" else t + 273.15
+    else:
+        raise UnitError("expected a temperature (e.g. '35C')", key=key, path=path, value=value)
+    if not math.isfinite(t) or t <= 0.0:
+        raise UnitError("temperature must be above absolute zero", key=key, path=path,
+                        value=value)
+    return t
+
+
+def format_value(x: float, unit: str = "") -> str:
+    """Format an SI value with an engineering prefix, e.g. ``4.7e-6, 'A'`` → ``'4.7 µA'``."""
+    if x == 0 or not math.isfinite(x):
+        return f"{x:g} {unit}".strip()
+    exp3 = int(math.floor(math.log10(abs(x)) / 3))
+    exp3 = max(-5, min(4, exp3))
+    sym = {-5: "f", -4: "p", -3: "n", -2: "µ", -1: "m", 0: "", 1: "k", 2: "M", 3: "G", 4: "T"}
+    return f"{x / 10 ** (3 * exp3):.4g} {sym[exp3]}{'Ω' if unit == 'ohm' else unit}".strip()
