@@ -19,7 +19,7 @@ def _temp(args):
 
 
 def _live(spec, args):
-    """--control V sets every live knob's value? No: --set NAME=VALUE sets knobs by name."""
+    """Knob values from ``--set NAME=VALUE`` options (checked against the knob's range)."""
     from livecurve.errors import ConfigError
     from livecurve.units import parse_value
     out = {}
@@ -83,6 +83,27 @@ def cmd_export(args) -> int:
     return 0
 
 
+def cmd_render(args) -> int:
+    from livecurve.app.render import render
+    spec = _chain(args.chain)
+    rep = render(spec, args.source, args.output, start_s=args.start, duration_s=args.duration,
+                 codec=args.codec, side_by_side=args.side_by_side, force=args.force,
+                 exact=args.exact, controls=args.control, progress=not args.quiet,
+                 t_kelvin=_temp(args))
+    print(f"wrote {rep.output}: {rep.frames} frames in {rep.seconds:.1f} s "
+          f"({rep.fps:.1f} fps); table bound {rep.table_bound_v * 1e3:.3f} mV")
+    if rep.flash:
+        ok = rep.flash.startswith("flash check: ok")
+        print(rep.flash, file=sys.stdout if ok else sys.stderr)
+    return 0
+
+
+def cmd_demo(args) -> int:
+    from livecurve.app.demo import run_demo
+    run_demo(args.out, force=args.force, quick=args.quick)
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="livecurve",
@@ -113,6 +134,31 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--temp-c")
     c.add_argument("--set", action="append", metavar="NAME=VALUE")
     c.set_defaults(func=cmd_export)
+
+    c = sub.add_parser("render", help="put a clip, still, sequence or camera through a chain")
+    c.add_argument("source", help="clip file, still, image sequence (shot_%%04d.png) or "
+                                  "camera:N")
+    c.add_argument("output", help=".mp4/.mov/.mkv for clips, .png/.tif for stills (16-bit)")
+    c.add_argument("--chain", required=True)
+    c.add_argument("--start", type=float, default=0.0, help="start time, seconds")
+    c.add_argument("--duration", type=float, default=None, help="seconds to render")
+    c.add_argument("--codec", choices=("h264", "ffv1"))
+    c.add_argument("--side-by-side", action="store_true", help="source | processed")
+    c.add_argument("--force", action="store_true", help="overwrite OUTPUT")
+    c.add_argument("--exact", action="store_true",
+                   help="solve every pixel with the DC solver instead of tables (slow)")
+    c.add_argument("--control", action="append", metavar="[NAME=]SOURCE",
+                   help="drive a live parameter, e.g. knee_current=clip or "
+                        "knee_current=lfo:sine:2Hz:1V")
+    c.add_argument("--temp-c", help="junction temperature (default: the chain's ambient)")
+    c.add_argument("--quiet", action="store_true", help="no progress bar")
+    c.set_defaults(func=cmd_render)
+
+    c = sub.add_parser("demo", help="render the built-in demo clip through the demo chains")
+    c.add_argument("--out", default="livecurve-demo", help="folder for the results")
+    c.add_argument("--force", action="store_true")
+    c.add_argument("--quick", action="store_true", help="one chain, two seconds")
+    c.set_defaults(func=cmd_demo)
     return p
 
 

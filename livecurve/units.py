@@ -87,6 +87,15 @@ def _parse_text(text: str, unit: str, *, key, path) -> float:
     accepted = UNITS.get(unit)
     if accepted is None:
         raise ValueError(f"unknown unit kind {unit!r}")
+    # A unit symbol written in full at the end ("300K/W", "4.7uA") is taken off first, so
+    # a symbol that starts with a prefix letter (K/W) is not read as a prefix.
+    t = text.strip()
+    for sym in sorted((a for a in accepted if a), key=len, reverse=True):
+        if len(t) > len(sym) and t.endswith(sym):
+            head = re.match(rf"^({_NUM})\s*({_PREFIXES})?\s*$", t[:-len(sym)].strip())
+            if head:
+                return float(head.group(1)) * _PREFIX[head.group(2) or ""]
+            break
     m = _RE_RNOT.match(text)
     if m:
         sign, whole, pfx, frac, sym = m.groups()

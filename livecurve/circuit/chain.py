@@ -29,6 +29,7 @@ class ChainModel:
 
     def __init__(self, spec: ChainSpec):
         self.spec = spec
+        self._warm: dict = {}  # (channel, stage id) -> (first input, solution vector)
 
     def stages_for(self, channel: int) -> list[StageSpec]:
         """Stages acting on *channel*, in order (others pass it through)."""
@@ -102,7 +103,14 @@ class ChainModel:
             net = self.netlist(channel, st, live)
             order = np.argsort(v, kind="stable")
             out = np.empty_like(v)
-            out[order] = solve_sweep(net, v[order], t_kelvin=tk)
+            key = (channel, st.id)
+            warm = self._warm.get(key)
+            sol: list = []
+            vs = v[order]
+            x0 = warm[1] if warm is not None and abs(warm[0] - vs[0]) < 0.05 else None
+            out[order] = solve_sweep(net, vs, t_kelvin=tk, x0=x0, solution=sol)
+            if sol:
+                self._warm[key] = (vs[0], sol[0])
             v = out
         return v
 

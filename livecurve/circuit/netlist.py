@@ -218,7 +218,8 @@ class Netlist:
 
 
 def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,
-                node: str = "out", strict: bool = True) -> np.ndarray:
+                node: str = "out", strict: bool = True, x0: np.ndarray | None = None,
+                solution: list | None = None) -> np.ndarray:
     """DC solution of a stage netlist at each input voltage.
 
     Parameters
@@ -233,6 +234,11 @@ def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,
         Which node's voltage to return (``"out"`` by default); ``"*"`` returns all unknowns.
     strict : bool
         Raise :class:`SolverError` if any point fails to converge (else NaN there).
+    x0 : ndarray, optional
+        Starting guess for the first point (e.g. a previous sweep's first solution).
+    solution : list, optional
+        If given, the full solution vector of the first point is appended to it (to
+        warm-start a later sweep of a similar problem).
 
     Returns
     -------
@@ -242,8 +248,12 @@ def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,
     vin = np.ascontiguousarray(np.atleast_1d(np.asarray(vin_v, dtype=np.float64)))
     xs = np.empty((vin.shape[0], comp.n_unknowns))
     ok = np.zeros(vin.shape[0], dtype=np.bool_)
+    warm = x0 is not None and x0.shape == (comp.n_unknowns,) and bool(np.isfinite(x0).all())
+    start = np.ascontiguousarray(x0, dtype=np.float64) if warm else np.zeros(comp.n_unknowns)
     _s._solve_sweep(comp.kinds, comp.nodes, comp.params, comp.branch, comp.n_nodes, vin,
-                    np.zeros(comp.n_unknowns), xs, ok)
+                    start, warm, xs, ok)
+    if solution is not None and ok.size and ok[0]:
+        solution.append(xs[0].copy())
     if strict and not ok.all():
         bad = vin[~ok]
         name = net.name if isinstance(net, Netlist) else "netlist"

@@ -28,7 +28,7 @@ BJT_KEYS = {"is": ("is_a", "A"), "bf": ("bf", ""), "br": ("br", ""), "nf": ("nf"
 DYNAMICS_KEYS = {"gbw": "Hz", "noise_gain": "", "slew": "V/us", "f_ring": "Hz", "zeta": "",
                  "ro": "ohm", "cl": "F"}
 TOP_KEYS = {"title", "notes", "space", "standard", "ambient", "format", "supply", "opamp",
-            "converter", "stage", "channel", "live", "sweep", "thermal"}
+            "converter", "stage", "channel", "live", "sweep", "thermal", "control"}
 _ID = re.compile(r"^[a-z][a-z0-9_]*$")
 
 
@@ -80,6 +80,12 @@ class ChainSpec:
     live: dict  # name -> LiveSpec
     sweep_v: tuple = (-0.5, 0.5)
     thermal: dict = field(default_factory=dict)
+    controls: dict = field(default_factory=dict)  # name -> ControlSpec (config.controls)
+
+    @property
+    def standard_or_default(self) -> str:
+        """The colour standard, or BT.709 when the file leaves it to the clip (``auto``)."""
+        return "bt709" if self.standard == "auto" else self.standard
 
     def stage(self, sid: str) -> StageSpec:
         for s in self.stages:
@@ -112,7 +118,8 @@ def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
     space = _req(raw, "space", "", path)
     try:
         space = check_space(space)
-        standard = check_standard(raw.get("standard", "bt709"))
+        standard = raw.get("standard", "auto")
+        standard = "auto" if standard == "auto" else check_standard(standard)
     except ConfigError as exc:
         raise ConfigError(str(exc).split(": ", 1)[-1], path=path, key=exc.key,
                           value=exc.value) from None
@@ -180,11 +187,13 @@ def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
     if not isinstance(fmt, str):
         raise ConfigError("format must be a name such as '1080p30' or 'auto'", path=path,
                           key="format", value=fmt)
+    from livecurve.config.controls import parse_controls
+    controls = parse_controls(_table(raw, "control", path), live, path)
     return ChainSpec(path=path, title=str(raw.get("title", Path(path).stem)),
                      notes=str(raw.get("notes", "")), space=space, standard=standard,
                      ambient_k=ambient, format=fmt, opamp=op, converter_bits=bits,
                      converter_legal=(rng == "legal"), stages=stages, overrides=overrides,
-                     live=live, sweep_v=sweep, thermal=th)
+                     live=live, sweep_v=sweep, thermal=th, controls=controls)
 
 
 # ---- pieces -------------------------------------------------------------------------

@@ -24,7 +24,8 @@ TARGET_ERR_V = 5e-5  # 0.05 mV
 N_START = 257
 N_MAX = 65537
 M_START = 9
-M_MAX = 1025
+M_MAX = 257
+N_MAX_2D = 4097
 
 
 @dataclass
@@ -52,6 +53,24 @@ class Table:
     c_hi: float = 0.0
     err_v: float = 0.0
     n_solves: int = 0
+    c_log: bool = False  # control axis uniform in log(c) rather than in c
+
+    def by_control(self) -> np.ndarray:
+        """The 2-D values laid out (M, N), one contiguous curve per control value (cached)."""
+        if getattr(self, "_vt", None) is None or self._vt.shape[1] != self.n:
+            self._vt = np.ascontiguousarray(self.values.T)
+        return self._vt
+
+    def control_pos(self, c) -> np.ndarray:
+        """Fractional column index of control value(s) *c* (clamped to the table)."""
+        m = self.values.shape[1]
+        c = np.asarray(c, dtype=np.float64)
+        if self.c_log:
+            lo, hi = np.log(self.c_lo), np.log(self.c_hi)
+            u = (np.log(np.maximum(c, self.c_lo)) - lo) / (hi - lo)
+        else:
+            u = (c - self.c_lo) / (self.c_hi - self.c_lo)
+        return np.clip(u * (m - 1), 0.0, m - 1.000001).astype(np.float32)
 
     @property
     def n(self) -> int:
@@ -106,16 +125,28 @@ def build_table_1d(fn: Callable[[np.ndarray], np.ndarray], lo_v: float, hi_v: fl
 
 def build_table_2d(fn: Callable[[np.ndarray, float], np.ndarray], lo_v: float, hi_v: float,
                    c_lo: float, c_hi: float, *, target_v: float = TARGET_ERR_V,
-                   n_max: int = N_MAX, m_max: int = M_MAX) -> Table:
+                   n_max: int = N_MAX_2D, m_max: int = M_MAX) -> Table:
     """Tabulate fn(x, c) on [lo_v, hi_v] × [c_lo, c_hi].
 
     The input axis size is the largest the 1-D build needs at the control ends and
     middle; the control axis then doubles until the error at control mid-points (and at
-    input mid-points) is ≤ *target_v*.
+    input mid-points) is ≤ *target_v*.  A positive control range spanning more than a
+    factor of 3 (currents, resistances) is gridded uniformly in log(c), where junction
+    laws are smooth.
     """
+    c_log = c_lo > 0 and c_hi / c_lo > 3.0
+
+    def axis(m):
+        if c_log:
+            return np.exp(np.linspace(np.log(c_lo), np.log(c_hi), m))
+        return np.linspace(c_lo, c_hi, m)
+
+    def mids(cs):
+        return np.sqrt(cs[:-1] * cs[1:]) if c_log else 0.5 * (cs[:-1] + cs[1:])
+
     n = N_START
     solves = 0
-    for c in (c_lo, 0.5 * (c_lo + c_hi), c_hi):
+    for c in axis(3):
         t = build_table_1d(lambda v, c=c: fn(v, c), lo_v, hi_v, target_v=target_v,
                            n_max=n_max)
         n = max(n, t.n)
@@ -123,11 +154,11 @@ def build_table_2d(fn: Callable[[np.ndarray, float], np.ndarray], lo_v: float, h
     x = np.linspace(lo_v, hi_v, n)
     xm = 0.5 * (x[:-1] + x[1:])
     m = M_START
-    cs = np.linspace(c_lo, c_hi, m)
+    cs = axis(m)
     cols = [fn(x, c) for c in cs]
     solves += n * m
     while True:
-        cm = 0.5 * (cs[:-1] + cs[1:])
+        cm = mids(cs)
         mid_cols = [fn(x, c) for c in cm]
         solves += n * len(cm)
         err = 0.0
@@ -141,18 +172,18 @@ def build_table_2d(fn: Callable[[np.ndarray, float], np.ndarray], lo_v: float, h
         for j in range(len(cm)):
             merged += [cols[j], mid_cols[j]]
         cols = merged + [cols[-1]]
-        cs = np.linspace(c_lo, c_hi, 2 * m - 1)
         m = 2 * m - 1
+        cs = axis(m)
     # input-axis error at the control mid-points, against the solver (checked, not assumed)
     for j in (0, len(cm) // 2, len(cm) - 1):
-        cc = 0.5 * (cs[j] + cs[j + 1])
+        cc = mids(cs[j:j + 2])[0]
         ym = fn(xm, cc)
         solves += xm.size
         a = 0.5 * (cols[j] + cols[j + 1]).astype(np.float32).astype(np.float64)
         lin = 0.5 * (a[:-1] + a[1:])
         err = max(err, float(np.max(np.abs(lin - ym))))
     values = np.ascontiguousarray(np.stack(cols, axis=1).astype(np.float32))
-    return Table(lo_v, hi_v, values, c_lo, c_hi, err_v=err, n_solves=solves)
+    return Table(lo_v, hi_v, values, c_lo, c_hi, err_v=err, n_solves=solves, c_log=c_log)
 
 
 # ---- per-pixel evaluation ----------------------------------------------------------
@@ -183,23 +214,21 @@ def apply_table(plane: np.ndarray, table: Table, *, control=None, out=None) -> n
     if not table.is_2d:
         _lut1d(plane, table.values, lo, inv, out)
         return out
-    c_inv = (table.values.shape[1] - 1) / (table.c_hi - table.c_lo)
     if control is None:
         control = 0.5 * (table.c_lo + table.c_hi)
     c = np.asarray(control, dtype=np.float64)
     h = plane.shape[0]
     if c.ndim == 0:
         c = np.full(h, float(c))
+    vt = table.by_control()
     if c.ndim == 1:
         if c.shape[0] != h:
             raise ValueError("control per row must have one value per row")
-        pos = np.clip((c - table.c_lo) * c_inv, 0.0, table.values.shape[1] - 1.000001)
-        _lut2d_rows(plane, table.values, lo, inv, pos.astype(np.float32), out)
+        _lut2d_rows(plane, vt, lo, inv, table.control_pos(c), out)
         return out
     if c.shape != plane.shape:
         raise ValueError("control per pixel must have the plane's shape")
-    pos = np.clip((c - table.c_lo) * c_inv, 0.0, table.values.shape[1] - 1.000001)
-    _lut2d_pixels(plane, table.values, lo, inv, pos.astype(np.float32), out)
+    _lut2d_pixels(plane, vt, lo, inv, table.control_pos(c), out)
     return out
 
 
@@ -219,25 +248,28 @@ def _lut1d(x, t, lo, inv, out):
 
 @nb.njit(cache=True, parallel=True, fastmath=True)
 def _lut2d_rows(x, t, lo, inv, cpos, out):
+    # t is laid out (M, N): the two curves a row needs are two contiguous rows of t
     h, w = x.shape
-    last = np.float32(t.shape[0] - 1) - np.float32(1e-3)
+    last = np.float32(t.shape[1] - 1) - np.float32(1e-3)
     for r in nb.prange(h):
         j = int(cpos[r])
         g = cpos[r] - np.float32(j)
+        t0 = t[j]
+        t1 = t[j + 1]
         for c in range(w):
             p = (x[r, c] - lo) * inv
             p = min(max(p, np.float32(0.0)), last)
             i = int(p)
             f = p - np.float32(i)
-            a = t[i, j] + g * (t[i, j + 1] - t[i, j])
-            b = t[i + 1, j] + g * (t[i + 1, j + 1] - t[i + 1, j])
+            a = t0[i] + g * (t1[i] - t0[i])
+            b = t0[i + 1] + g * (t1[i + 1] - t0[i + 1])
             out[r, c] = a + f * (b - a)
 
 
 @nb.njit(cache=True, parallel=True, fastmath=True)
 def _lut2d_pixels(x, t, lo, inv, cpos, out):
     h, w = x.shape
-    last = np.float32(t.shape[0] - 1) - np.float32(1e-3)
+    last = np.float32(t.shape[1] - 1) - np.float32(1e-3)
     for r in nb.prange(h):
         for c in range(w):
             j = int(cpos[r, c])
@@ -246,6 +278,6 @@ def _lut2d_pixels(x, t, lo, inv, cpos, out):
             p = min(max(p, np.float32(0.0)), last)
             i = int(p)
             f = p - np.float32(i)
-            a = t[i, j] + g * (t[i, j + 1] - t[i, j])
-            b = t[i + 1, j] + g * (t[i + 1, j + 1] - t[i + 1, j])
+            a = t[j, i] + g * (t[j + 1, i] - t[j, i])
+            b = t[j, i + 1] + g * (t[j + 1, i + 1] - t[j, i + 1])
             out[r, c] = a + f * (b - a)

@@ -1,0 +1,97 @@
+"""``livecurve demo``: the built-in demo clip through the demo chains, to a folder.
+
+For each demo chain it writes the processed clip (source | processed, side by side),
+a before/after still, the DC curves (CSV and PNG) and the SPICE deck, then says how to
+open the live preview.  The night-knee chain is driven by the clip's own soundtrack.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+from livecurve.errors import LivecurveError, OutputError
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO_CLIP = ROOT / "clips" / "demo.mp4"
+DEMO_CHAINS = ("night_knee", "shadow_crush", "film_shoulder")
+
+
+def demo_clip() -> Path:
+    """The demo clip, made by clips/make_demo_clip.py if it is missing."""
+    if not DEMO_CLIP.is_file():
+        import subprocess
+        import sys
+        script = ROOT / "clips" / "make_demo_clip.py"
+        if not script.is_file():
+            raise LivecurveError(f"demo clip {DEMO_CLIP} and its script are missing")
+        subprocess.run([sys.executable, str(script)], check=True, cwd=str(ROOT))
+    return DEMO_CLIP
+
+
+def chain_path(name: str) -> Path:
+    return ROOT / "configs" / f"{name}.toml"
+
+
+def run_demo(out_dir, *, force: bool = False, quick: bool = False, say=print) -> list[Path]:
+    """Render the demo; returns the files written."""
+    from livecurve.app import curves
+    from livecurve.app.render import render
+    from livecurve.config.chainfile import load_chain
+    out = Path(out_dir)
+    if out.exists() and any(out.iterdir()) and not force:
+        raise OutputError(f"{out}: folder exists and is not empty; use --force to write into "
+                          "it")
+    out.mkdir(parents=True, exist_ok=True)
+    clip = demo_clip()
+    written: list[Path] = []
+    chains = DEMO_CHAINS[:1] if quick else DEMO_CHAINS
+    duration = 2.0 if quick else None
+    for name in chains:
+        spec = load_chain(chain_path(name))
+        say(f"== {spec.title} ({chain_path(name).name})")
+        vin, vout = curves.curves(spec, points=401)
+        for p, fn in ((out / f"{name}_curve.csv", curves.write_curve_csv),):
+            fn(p, vin, vout, force=True)
+            written.append(p)
+        curves.write_curve_png(out / f"{name}_curve.png", vin, vout, spec, force=True)
+        curves.write_spice(out / f"{name}.cir", spec, force=True)
+        written += [out / f"{name}_curve.png", out / f"{name}.cir"]
+        clip_out = out / f"{name}.mp4"
+        rep = render(spec, str(clip), clip_out, duration_s=duration, side_by_side=True,
+                     force=True, progress=os.environ.get("CI") is None)
+        written.append(clip_out)
+        say(f"   {clip_out}: {rep.frames} frames at {rep.fps:.1f} fps "
+            f"(table bound {rep.table_bound_v * 1e3:.3f} mV)")
+        if rep.flash:
+            say(f"   {rep.flash}")
+        still = out / f"{name}_before_after.png"
+        _before_after(spec, clip, still)
+        written.append(still)
+    say("")
+    say(f"Results are in {out}/ (side-by-side clips: source left, processed right).")
+    say("Open the live preview with, for example:")
+    say(f"  livecurve preview {clip} --chain {chain_path('night_knee')}")
+    say(f"  livecurve preview {clip} --chain {chain_path('night_knee')} "
+        "--control beat=clip")
+    say("Without a display, write the same picture and monitors to a file with --snapshot OUT.png.")
+    return written
+
+
+def _before_after(spec, clip: Path, path: Path, *, at_s: float = 2.0) -> None:
+    """A 16-bit PNG: the frame at *at_s* before (left) and after (right) the chain."""
+    from livecurve.app.frameflow import FrameFlow, bind_controls
+    from livecurve.media.atomic import write_still
+    from livecurve.media.source import open_source
+    with open_source(str(clip), start_s=at_s, duration_s=1.0) as src:
+        fr = next(iter(src))
+        info = src.info
+    flow = FrameFlow(spec, width=info.width, height=info.height, fps=info.fps,
+                     clip_matrix=info.colour_matrix,
+                     controls=bind_controls(spec, [], clip_path=str(clip)),
+                     out_dtype=np.uint16)
+    after = flow.process(fr.rgb, fr.index)
+    before = fr.rgb.astype(np.uint16) * 257
+    write_still(path, np.concatenate([before, after], axis=1), force=True)

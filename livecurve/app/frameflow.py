@@ -1,0 +1,158 @@
+"""One frame's whole path, shared by render and preview:
+
+decoded R′G′B′ codes → zero-centred channel volts (``signal.levels``) → the chain
+(``engine.pipeline``, with control values sampled at each row's or pixel's time on the
+video timing) → the output converter and back to R′G′B′ codes.
+
+All buffers are allocated once for the frame size; ``process`` allocates nothing in
+steady state apart from the small per-row control arrays.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from livecurve.config.chainfile import ChainSpec
+from livecurve.config.controls import ControlSpec, default_for_knob
+from livecurve.engine.pipeline import FrameEngine
+from livecurve.errors import ConfigError
+from livecurve.signal.levels import codes_to_volts, volts_to_codes
+from livecurve.signal.timing import ClipTiming, get_format, infer_format
+
+
+def resolve_standard(spec: ChainSpec, clip_matrix: str | None, width: int, height: int) -> str:
+    """The chain's colour standard, or (``auto``) the clip's tagged matrix, or the common
+    guess for untagged material (BT.709 for HD and larger, else BT.601)."""
+    if spec.standard != "auto":
+        return spec.standard
+    if clip_matrix:
+        return clip_matrix
+    return "bt709" if width >= 1280 or height >= 720 else "bt601"
+
+
+def resolve_timing(spec: ChainSpec, width: int, height: int, fps: float) -> ClipTiming:
+    """Video timing from the chain file's ``format`` or inferred from the clip."""
+    fmt = infer_format(width, height, fps) if spec.format == "auto" else get_format(spec.format)
+    return ClipTiming(fmt, width, height)
+
+
+def bind_controls(spec: ChainSpec, items, *, clip_path=None) -> list:
+    """Turn ``--control`` options and the chain's control blocks into (ControlSpec, ControlMap).
+
+    Parameters
+    ----------
+    items : list of str
+        ``NAME=SOURCE`` (NAME a control block or a live knob) or a bare ``SOURCE`` when the
+        chain has exactly one control block.  Control blocks with a default ``source`` are
+        bound even when no option names them.
+    """
+    from livecurve.control.mapping import ControlMap
+    from livecurve.control.spec import parse_source
+    chosen: dict[str, ControlSpec] = {}
+    for item in items or []:
+        name, src = _split_item(item, spec)
+        if name in spec.controls:
+            cs = spec.controls[name]
+            chosen[name] = ControlSpec(**{**cs.__dict__, "source": src})
+        elif name in spec.live:
+            chosen[name] = default_for_knob(name, spec.live[name], src)
+        else:
+            raise ConfigError(f"no control block or live parameter '{name}'; controls: "
+                              f"{', '.join(spec.controls) or 'none'}; live: "
+                              f"{', '.join(spec.live) or 'none'}", key="--control", value=item)
+    for name, cs in spec.controls.items():
+        if name not in chosen and cs.source:
+            chosen[name] = cs
+    drives = [c.drives for c in chosen.values()]
+    for d in drives:
+        if drives.count(d) > 1:
+            raise ConfigError("two controls drive the same live parameter", key="--control",
+                              value=d)
+    out = []
+    for cs in chosen.values():
+        src = parse_source(cs.source, clip_path=clip_path)
+        out.append((cs, ControlMap(src, gain=cs.gain, offset_v=cs.offset_v,
+                                   envelope=cs.envelope, converter=cs.make_converter())))
+    return out
+
+
+def _split_item(item: str, spec: ChainSpec) -> tuple[str, str]:
+    head, sep, rest = item.partition("=")
+    if sep and ":" not in head and head.strip():
+        return head.strip(), rest.strip()
+    if len(spec.controls) == 1:
+        return next(iter(spec.controls)), item.strip()
+    raise ConfigError("write --control NAME=SOURCE (NAME a control block or a live parameter)",
+                      key="--control", value=item)
+
+
+class FrameFlow:
+    """Codes in, codes out, through a chain, at a fixed frame size.
+
+    Parameters
+    ----------
+    spec : ChainSpec
+    width, height : int
+    fps : float
+    clip_matrix : str, optional
+        Matrix the clip's metadata names (used when the chain says ``standard = "auto"``).
+    controls : list of (ControlSpec, ControlMap)
+        From :func:`bind_controls`.
+    exact : bool
+        Solver per pixel instead of tables.
+    out_dtype : numpy dtype
+        uint8 (clips) or uint16 (16-bit stills, ffv1).
+    """
+
+    def __init__(self, spec: ChainSpec, *, width: int, height: int, fps: float,
+                 clip_matrix: str | None = None, controls=(), exact: bool = False,
+                 out_dtype=np.uint8, t_kelvin: float | None = None):
+        self.spec = spec
+        self.standard = resolve_standard(spec, clip_matrix, width, height)
+        self.timing = resolve_timing(spec, width, height, fps)
+        self.controls = list(controls)
+        self.engine = FrameEngine(spec, modulated=[c.drives for c, _ in self.controls],
+                                  pixel_period_s=self.timing.pixel_period_s,
+                                  lead_in_samples=self.timing.blank_samples, exact=exact,
+                                  t_kelvin=t_kelvin)
+        self.out_dtype = np.dtype(out_dtype)
+        self.planes_in = np.empty((3, height, width), dtype=np.float32)
+        self.planes_out = np.empty((3, height, width), dtype=np.float32)
+        self.rgb_out = np.empty((height, width, 3), dtype=self.out_dtype)
+        self.bypass = False
+        #: Control values used for the last frame: name → per-row array (or scalar).
+        self.last_controls: dict = {}
+
+    def control_values(self, frame_index: int) -> dict:
+        """Knob values for every bound control at the times of this frame's rows/pixels."""
+        out = {}
+        if not self.controls:
+            return out
+        rows = self.timing.row_time_s(frame_index)
+        for cs, cmap in self.controls:
+            if cs.rate == "frame":
+                out[cs.drives] = float(cmap.values_at(np.array([rows[0]]))[0])
+            elif cs.rate == "line":
+                out[cs.drives] = cmap.per_line(rows)
+            else:
+                t = rows[:, None] + self.timing.column_offset_s[None, :]
+                out[cs.drives] = cmap.values_at(t)
+        return out
+
+    def process(self, rgb: np.ndarray, frame_index: int) -> np.ndarray:
+        """Run one decoded frame through the chain; returns the output R′G′B′ codes
+        (a buffer reused on the next call)."""
+        bits = None
+        codes_to_volts(rgb, space=self.spec.space, standard=self.standard, bits=bits,
+                       out=self.planes_in)
+        if self.bypass:
+            np.copyto(self.planes_out, self.planes_in)
+        else:
+            ctl = self.control_values(frame_index)
+            self.last_controls = ctl
+            self.engine.process(self.planes_in, controls=ctl, out=self.planes_out)
+        volts_to_codes(self.planes_out, space=self.spec.space, standard=self.standard,
+                       converter_bits=self.spec.converter_bits,
+                       converter_legal=self.spec.converter_legal, out_dtype=self.out_dtype,
+                       out=self.rgb_out)
+        return self.rgb_out

@@ -1,0 +1,192 @@
+"""Render: put a clip, still, image sequence or camera through a chain and write a file.
+
+Clips are encoded by the bundled ffmpeg (h264 or lossless ffv1) with the source's audio
+copied across untouched; stills and image sequences written as ``.png``/``.tif`` are
+lossless and 16-bit, so a frame can be compared exactly.  Every output is written to a
+temporary file and renamed only when complete (``media.atomic``); an error or Ctrl-C
+leaves no partial output.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from livecurve.app.frameflow import FrameFlow, bind_controls
+from livecurve.config.chainfile import ChainSpec
+from livecurve.errors import OutputError
+
+STILL_EXT = (".png", ".tif", ".tiff")
+
+
+@dataclass
+class RenderReport:
+    """What a render did: frames, seconds, achieved fps, output path, flash verdict."""
+
+    output: str
+    frames: int
+    seconds: float
+    fps: float
+    table_bound_v: float
+    flash: str | None = None
+
+
+class Progress:
+    """A one-line progress bar on stderr: frames, fps and time left."""
+
+    def __init__(self, total: int | None, *, enabled: bool = True, stream=None):
+        self.total, self.enabled = total, enabled
+        self.stream = stream or sys.stderr
+        self.t0 = time.perf_counter()
+        self.last = 0.0
+
+    def update(self, done: int, *, force: bool = False) -> None:
+        if not self.enabled:
+            return
+        now = time.perf_counter()
+        if not force and now - self.last < 0.25:
+            return
+        self.last = now
+        el = max(now - self.t0, 1e-9)
+        fps = done / el
+        if self.total:
+            frac = min(done / self.total, 1.0)
+            bar = "#" * int(30 * frac) + "-" * (30 - int(30 * frac))
+            left = (self.total - done) / fps if fps > 0 else float("inf")
+            msg = f"\r[{bar}] {done}/{self.total}  {fps:5.1f} fps  {left:5.0f} s left "
+        else:
+            msg = f"\r{done} frames  {fps:5.1f} fps "
+        self.stream.write(msg)
+        self.stream.flush()
+
+    def close(self) -> None:
+        if self.enabled:
+            self.stream.write("\n")
+            self.stream.flush()
+
+
+def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
+           duration_s: float | None = None, codec: str | None = None,
+           side_by_side: bool = False, force: bool = False, exact: bool = False,
+           controls=(), progress: bool = True, t_kelvin: float | None = None,
+           flash_check: bool = True) -> RenderReport:
+    """Render *source* through the chain *spec* into *output*.
+
+    Parameters
+    ----------
+    source : str
+        Clip file, still, image sequence (``shot_%04d.png`` or a glob) or ``camera:N``.
+    output : str
+        ``.mp4``/``.mov``/``.mkv`` for clips; ``.png``/``.tif`` for stills (16-bit).
+    codec : {'h264', 'ffv1'}, optional
+        Default: h264, or ffv1 for ``.mkv``.
+    side_by_side : bool
+        Output the source on the left and the processed picture on the right.
+    controls : list of str
+        ``--control`` options (see :func:`livecurve.app.frameflow.bind_controls`).
+    """
+    from livecurve.media.atomic import check_target, write_still
+    from livecurve.media.source import open_source
+    out = Path(output)
+    check_target(out, force=force)
+    ext = out.suffix.lower()
+    still_out = ext in STILL_EXT
+    src = open_source(source, start_s=start_s, duration_s=duration_s)
+    with src:
+        info = src.info
+        if still_out and info.kind not in ("still", "sequence"):
+            raise OutputError(f"{out}: a {ext} output takes a still or an image sequence; "
+                              f"'{source}' is a {info.kind} (write .mp4 or .mkv)")
+        if not still_out and ext not in (".mp4", ".mov", ".mkv"):
+            raise OutputError(f"{out}: unknown output type '{ext}'; use .mp4, .mov, .mkv, "
+                              ".png or .tif")
+        bound = bind_controls(spec, controls, clip_path=source if info.kind == "clip" else None)
+        n_total = _frames_expected(src, info)
+        out_dtype = np.uint16 if (still_out or (codec or _codec_for(ext)) == "ffv1") \
+            else np.uint8
+        flow = FrameFlow(spec, width=info.width, height=info.height, fps=info.fps,
+                         clip_matrix=info.colour_matrix, controls=bound, exact=exact,
+                         out_dtype=out_dtype, t_kelvin=t_kelvin)
+        flash = _flash_meter(flow, info.fps) if (flash_check and bound) else None
+        bar = Progress(n_total, enabled=progress)
+        t0 = time.perf_counter()
+        done = 0
+        if still_out:
+            if info.kind == "sequence" and "%" not in out.name and n_total and n_total > 1:
+                raise OutputError(f"{out}: an image sequence needs a numbered output name, "
+                                  "e.g. out_%04d.png")
+            for fr in src:
+                rgb = flow.process(fr.rgb, fr.index)
+                img = _side(fr.rgb, rgb, out_dtype) if side_by_side else rgb
+                name = str(out) % fr.index if "%" in out.name else str(out)
+                write_still(name, img, force=force)
+                done += 1
+                bar.update(done)
+        else:
+            from livecurve.media.encode import ClipWriter
+            w = info.width * (2 if side_by_side else 1)
+            audio = source if (info.kind == "clip" and info.has_audio) else None
+            with ClipWriter(out, width=w, height=info.height, fps=info.fps,
+                            codec=codec or _codec_for(ext), audio_from=audio,
+                            audio_start_s=start_s, audio_duration_s=duration_s, force=force,
+                            matrix=flow.standard) as writer:
+                for fr in src:
+                    rgb = flow.process(fr.rgb, fr.index)
+                    if flash is not None:
+                        flash.push(flow.planes_out)
+                    writer.write(_side(fr.rgb, rgb, out_dtype) if side_by_side else rgb)
+                    done += 1
+                    bar.update(done)
+                if done == 0:
+                    raise OutputError(f"{out}: the source gave no frames")
+        bar.update(done, force=True)
+        bar.close()
+    el = time.perf_counter() - t0
+    return RenderReport(str(out), done, el, done / el if el > 0 else 0.0,
+                        flow.engine.worst_table_err_v,
+                        None if flash is None else flash_text(flash.report()))
+
+
+def flash_text(rep) -> str:
+    """One line on a flash report (ITU-R BT.1702 estimate)."""
+    if rep.verdict == "ok":
+        return (f"flash check: ok (at most {rep.max_flashes_per_s} flashes in any second; "
+                "ITU-R BT.1702 estimate)")
+    when = "" if rep.first_hazard_s is None else f", first at {rep.first_hazard_s:.2f} s"
+    return (f"flash check: {rep.verdict.upper()} — up to {rep.max_flashes_per_s} general and "
+            f"{rep.max_red_flashes_per_s} red flashes in one second{when}. Pictures that flash "
+            "more than 3 times a second can trigger seizures in people with photosensitive "
+            "epilepsy (ITU-R BT.1702); slow the modulation or reduce its depth before showing "
+            "this to anyone.")
+
+
+def _codec_for(ext: str) -> str:
+    return "ffv1" if ext == ".mkv" else "h264"
+
+
+def _frames_expected(src, info) -> int | None:
+    if info.n_frames is None:
+        return None
+    stop = src.stop_index if src.stop_index is not None else info.n_frames
+    return max(0, min(stop, info.n_frames) - src.first_index)
+
+
+def _side(before: np.ndarray, after: np.ndarray, dtype) -> np.ndarray:
+    """Before | after, both in the output's word size."""
+    b = before
+    if b.dtype != np.dtype(dtype):
+        b = (b.astype(np.uint16) * 257) if dtype == np.uint16 else (b >> 8).astype(np.uint8)
+    return np.concatenate([b, after], axis=1)
+
+
+def _flash_meter(flow: FrameFlow, fps: float):
+    """A photosensitive-flash meter on the output (ITU-R BT.1702 estimate), or None."""
+    try:
+        from livecurve.monitors.flash import FlashMeter
+    except ImportError:  # monitors not installed in this build
+        return None
+    return FlashMeter(fps, space=flow.spec.space, standard=flow.standard)
