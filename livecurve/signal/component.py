@@ -72,8 +72,18 @@ def rgb_to_ypbpr_matrix(standard: str) -> np.ndarray:
 
 
 def ypbpr_to_rgb_matrix(standard: str) -> np.ndarray:
-    """Inverse of :func:`rgb_to_ypbpr_matrix`, shape (3, 3)."""
-    return np.linalg.inv(rgb_to_ypbpr_matrix(standard))
+    """Inverse of :func:`rgb_to_ypbpr_matrix`, shape (3, 3).
+
+    Written out from the same definitions (R′ = Y′ + 2(1−Kr)·Pr, B′ = Y′ + 2(1−Kb)·Pb,
+    G′ = (Y′ − Kr·R′ − Kb·B′)/Kg) rather than inverted numerically, so the Y′ column is exactly
+    1 and a grey (Pb = Pr = 0) comes back with R′ = G′ = B′ = Y′ bit for bit.
+    """
+    kr, kg, kb = luma_weights(standard)
+    return np.array([
+        [1.0, 0.0, 2.0 * (1 - kr)],
+        [1.0, -2.0 * kb * (1 - kb) / kg, -2.0 * kr * (1 - kr) / kg],
+        [1.0, 2.0 * (1 - kb), 0.0],
+    ])
 
 
 def centre_offsets_v(space: str) -> tuple[float, float, float]:
