@@ -89,7 +89,7 @@ def cmd_render(args) -> int:
     rep = render(spec, args.source, args.output, start_s=args.start, duration_s=args.duration,
                  codec=args.codec, side_by_side=args.side_by_side, force=args.force,
                  exact=args.exact, controls=args.control, progress=not args.quiet,
-                 t_kelvin=_temp(args))
+                 t_kelvin=_temp(args), drift=args.drift)
     print(f"wrote {rep.output}: {rep.frames} frames in {rep.seconds:.1f} s "
           f"({rep.fps:.1f} fps); table bound {rep.table_bound_v * 1e3:.3f} mV")
     if rep.flash:
@@ -101,6 +101,54 @@ def cmd_render(args) -> int:
 def cmd_demo(args) -> int:
     from livecurve.app.demo import run_demo
     run_demo(args.out, force=args.force, quick=args.quick)
+    return 0
+
+
+def cmd_devices(args) -> int:
+    from livecurve.control.live import list_inputs
+    inputs = list_inputs()
+    if not inputs:
+        print("no audio inputs found (is libportaudio2 installed and a capture device present?)")
+        return 0
+    print("audio inputs (use --control NAME=device:INDEX or device:NAME):")
+    for idx, name, ch, rate in inputs:
+        print(f"  {idx:3d}  {name}  ({ch} ch, {rate:g} Hz)")
+    return 0
+
+
+def cmd_preview(args) -> int:
+    from livecurve.app.preview import run_preview
+    return int(run_preview(args.chain, args.source, snapshot=args.snapshot, at_s=args.at,
+                           controls=args.control or (), exact=args.exact) or 0)
+
+
+def cmd_drift(args) -> int:
+    from pathlib import Path
+
+    from livecurve.app.drift import run_drift
+    from livecurve.units import parse_temperature_k
+    spec = _chain(args.chain)
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    rep = run_drift(spec, from_k=parse_temperature_k(args.from_t, key="--from"),
+                    to_k=parse_temperature_k(args.to_t, key="--to"), steps=args.steps,
+                    csv=out / "drift.csv", png=out / "drift.png",
+                    strip_png=out / "drift_strip.png", frame_source=args.frame)
+    print("\n".join(rep.lines()))
+    return 0
+
+
+def cmd_spread(args) -> int:
+    from pathlib import Path
+
+    from livecurve.app.spread import run_spread
+    spec = _chain(args.chain)
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    rep = run_spread(spec, trials=args.trials, seed=args.seed, csv=out / "spread.csv",
+                     json=out / "spread.json", png=out / "spread.png",
+                     progress=not args.quiet)
+    print("\n".join(rep.lines()))
     return 0
 
 
@@ -151,8 +199,39 @@ def build_parser() -> argparse.ArgumentParser:
                    help="drive a live parameter, e.g. knee_current=clip or "
                         "knee_current=lfo:sine:2Hz:1V")
     c.add_argument("--temp-c", help="junction temperature (default: the chain's ambient)")
+    c.add_argument("--drift", action="store_true",
+                   help="junction temperatures follow the chain's [thermal] warm-up over time")
     c.add_argument("--quiet", action="store_true", help="no progress bar")
     c.set_defaults(func=cmd_render)
+
+    c = sub.add_parser("preview", help="live window with monitors (or --snapshot without one)")
+    c.add_argument("source", help="clip, still, image sequence or camera:N")
+    c.add_argument("--chain", required=True)
+    c.add_argument("--snapshot", metavar="OUT.png", help="write the composite and exit")
+    c.add_argument("--at", type=float, default=None, help="time of the snapshot, seconds")
+    c.add_argument("--control", action="append", metavar="[NAME=]SOURCE")
+    c.add_argument("--exact", action="store_true")
+    c.set_defaults(func=cmd_preview)
+
+    c = sub.add_parser("devices", help="list audio inputs for --control device:...")
+    c.set_defaults(func=cmd_devices)
+
+    c = sub.add_parser("drift", help="curves and a reference frame over temperature")
+    c.add_argument("chain")
+    c.add_argument("--from", dest="from_t", default="0C")
+    c.add_argument("--to", dest="to_t", default="50C")
+    c.add_argument("--steps", type=int, default=6)
+    c.add_argument("--frame", help="a still to use as the reference frame")
+    c.add_argument("--out", default="drift")
+    c.set_defaults(func=cmd_drift)
+
+    c = sub.add_parser("spread", help="Monte Carlo over component tolerances")
+    c.add_argument("chain")
+    c.add_argument("--trials", type=int, default=200)
+    c.add_argument("--seed", type=int, default=0)
+    c.add_argument("--out", default="spread")
+    c.add_argument("--quiet", action="store_true")
+    c.set_defaults(func=cmd_spread)
 
     c = sub.add_parser("demo", help="render the built-in demo clip through the demo chains")
     c.add_argument("--out", default="livecurve-demo", help="folder for the results")

@@ -44,7 +44,8 @@ def bind_controls(spec: ChainSpec, items, *, clip_path=None) -> list:
     items : list of str
         ``NAME=SOURCE`` (NAME a control block or a live knob) or a bare ``SOURCE`` when the
         chain has exactly one control block.  Control blocks with a default ``source`` are
-        bound even when no option names them.
+        bound even when no option names them, unless an option drives the same live
+        parameter (the explicit option wins).
     """
     from livecurve.control.mapping import ControlMap
     from livecurve.control.spec import parse_source
@@ -60,8 +61,12 @@ def bind_controls(spec: ChainSpec, items, *, clip_path=None) -> list:
             raise ConfigError(f"no control block or live parameter '{name}'; controls: "
                               f"{', '.join(spec.controls) or 'none'}; live: "
                               f"{', '.join(spec.live) or 'none'}", key="--control", value=item)
+    # a block's default source yields to an option that drives the same knob explicitly
+    explicit = {c.drives for c in chosen.values()}
     for name, cs in spec.controls.items():
-        if name not in chosen and cs.source:
+        if name not in chosen and cs.source and cs.drives not in explicit:
+            if _needs_clip(cs.source) and clip_path is None:
+                continue  # a still or camera has no soundtrack: the knob keeps its value
             chosen[name] = cs
     drives = [c.drives for c in chosen.values()]
     for d in drives:
@@ -74,6 +79,10 @@ def bind_controls(spec: ChainSpec, items, *, clip_path=None) -> list:
         out.append((cs, ControlMap(src, gain=cs.gain, offset_v=cs.offset_v,
                                    envelope=cs.envelope, converter=cs.make_converter())))
     return out
+
+
+def _needs_clip(source: str) -> bool:
+    return any(part.strip().split(":")[0] == "clip" for part in source.split("+"))
 
 
 def _split_item(item: str, spec: ChainSpec) -> tuple[str, str]:
@@ -106,7 +115,8 @@ class FrameFlow:
 
     def __init__(self, spec: ChainSpec, *, width: int, height: int, fps: float,
                  clip_matrix: str | None = None, controls=(), exact: bool = False,
-                 out_dtype=np.uint8, t_kelvin: float | None = None):
+                 out_dtype=np.uint8, t_kelvin: float | None = None, drift: bool = False,
+                 speedup: float | None = None):
         self.spec = spec
         self.standard = resolve_standard(spec, clip_matrix, width, height)
         self.timing = resolve_timing(spec, width, height, fps)
@@ -120,6 +130,13 @@ class FrameFlow:
         self.planes_out = np.empty((3, height, width), dtype=np.float32)
         self.rgb_out = np.empty((height, width, 3), dtype=self.out_dtype)
         self.bypass = False
+        #: Thermal drift: junction temperatures follow the chain's warm-up profile and
+        #: self-heating; tables are rebuilt when they move by more than a threshold.
+        self.follower = None
+        if drift:
+            from livecurve.app.thermal import TableFollower, ThermalModel
+            self.follower = TableFollower(ThermalModel(spec), speedup=speedup)
+        self.fps = float(fps)
         #: Control values used for the last frame: name → per-row array (or scalar).
         self.last_controls: dict = {}
 
@@ -148,6 +165,8 @@ class FrameFlow:
         if self.bypass:
             np.copyto(self.planes_out, self.planes_in)
         else:
+            if self.follower is not None:
+                self.follower.maybe_update(self.engine, frame_index / self.fps)
             ctl = self.control_values(frame_index)
             self.last_controls = ctl
             self.engine.process(self.planes_in, controls=ctl, out=self.planes_out)

@@ -73,7 +73,7 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
            duration_s: float | None = None, codec: str | None = None,
            side_by_side: bool = False, force: bool = False, exact: bool = False,
            controls=(), progress: bool = True, t_kelvin: float | None = None,
-           flash_check: bool = True) -> RenderReport:
+           flash_check: bool = True, drift: bool = False) -> RenderReport:
     """Render *source* through the chain *spec* into *output*.
 
     Parameters
@@ -88,6 +88,9 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
         Output the source on the left and the processed picture on the right.
     controls : list of str
         ``--control`` options (see :func:`livecurve.app.frameflow.bind_controls`).
+    drift : bool
+        Let junction temperatures follow the chain's ``[thermal]`` warm-up and self-heating
+        over the clip's time (tables rebuilt as they move).
     """
     from livecurve.media.atomic import check_target, write_still
     from livecurve.media.source import open_source
@@ -110,7 +113,7 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
             else np.uint8
         flow = FrameFlow(spec, width=info.width, height=info.height, fps=info.fps,
                          clip_matrix=info.colour_matrix, controls=bound, exact=exact,
-                         out_dtype=out_dtype, t_kelvin=t_kelvin)
+                         out_dtype=out_dtype, t_kelvin=t_kelvin, drift=drift)
         flash = _flash_meter(flow, info.fps) if (flash_check and bound) else None
         bar = Progress(n_total, enabled=progress)
         t0 = time.perf_counter()

@@ -68,7 +68,9 @@ def chain_summary(spec: ChainSpec, engine=None, *, pixel_period_s: float = 1 / 7
             dyn = stage_dynamics(st)
             if dyn is not None:
                 f = dynamics_figures(dyn, pixel_period_s)
-                lines.append(f"      dynamics: −3 dB {f['bw_hz'] / 1e6:.2f} MHz, rise "
+                bw = ("above the pixel-clock Nyquist" if not np.isfinite(f["bw_hz"])
+                      else f"{f['bw_hz'] / 1e6:.2f} MHz")
+                lines.append(f"      dynamics: −3 dB {bw}, rise "
                              f"{f['rise_s'] * 1e9:.1f} ns, overshoot {100 * f['overshoot']:.1f} %")
     if engine is not None:
         for row in engine.summary_rows():

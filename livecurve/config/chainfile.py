@@ -183,6 +183,11 @@ def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
         if not th["tau_s"] > 0:
             raise ConfigError("time constant must be above zero", path=path, key="thermal.tau",
                               value=thermal["tau"])
+    if "speedup" in thermal:
+        th["speedup"] = parse_value(thermal["speedup"], "", key="thermal.speedup", path=path)
+        if not th["speedup"] > 0:
+            raise ConfigError("speed-up must be above zero", path=path, key="thermal.speedup",
+                              value=thermal["speedup"])
     fmt = raw.get("format", "auto")
     if not isinstance(fmt, str):
         raise ConfigError("format must be a name such as '1080p30' or 'auto'", path=path,

@@ -155,9 +155,14 @@ class FrameEngine:
                 else:
                     ys = self._solve(run, np.linspace(lo, hi, 257), None)
                     out_lo, out_hi = float(ys.min()), float(ys.max())
-                run.blank_out_v = float(self._solve(run, np.array([blank]), None)[0])
+                run.blank_out_v = self._blank_out(run, blank)
                 if run.dynamics is not None:
-                    run.line_filter = discretise(run.dynamics, self.pixel_period_s)
+                    # the filter depends on the dynamics and the pixel clock only, not on
+                    # knobs or temperature: keep it across rebuilds
+                    key = (run.dynamics, self.pixel_period_s)
+                    if run.line_filter is None or getattr(run, "_lf_key", None) != key:
+                        run.line_filter = discretise(run.dynamics, self.pixel_period_s)
+                        run._lf_key = key
                     span = max(out_hi - out_lo, 1e-3)
                     lo, hi = out_lo - DOMAIN_MARGIN * span, out_hi + DOMAIN_MARGIN * span
                 else:
@@ -166,6 +171,19 @@ class FrameEngine:
                         hi = lo + 1e-6
                 blank = run.blank_out_v
                 run.build_s = time.perf_counter() - t0
+
+    def _blank_out(self, run: Run, blank_v: float) -> float:
+        """The run's static output for a pixel at the blanking level, evaluated the way every
+        pixel is (float32 input through the table, or the solver in exact mode), so the line
+        filter's rest level is exactly what a line at blanking hands it."""
+        x = np.full((1, 1), blank_v, dtype=np.float32)
+        y = np.empty_like(x)
+        ctl = self.state.live.get(run.knob) if run.knob else None
+        if self.exact:
+            self._exact(run, x, ctl, y)
+        else:
+            _tables.apply_table(x, run.table, control=ctl, out=y)
+        return float(y[0, 0])
 
     def _solve(self, run: Run, v: np.ndarray, knob_value) -> np.ndarray:
         live = dict(self.state.live)

@@ -1,0 +1,385 @@
+"""Thermal drift of a chain: every channel's DC curve over a range of temperatures, and a
+reference picture processed at several of them.
+
+The physics is the junction laws of :mod:`livecurve.circuit.devices` (SPICE level-1 diode
+and Gummel–Poon IS(T), VT = kT/q): at constant current a junction's voltage falls by
+≈ 2 mV/K (Sedra & Smith; common practice) and a transdiode log stage's volts per decade
+grow ∝ T (TI/National AN-30).  Every stage of the chain sits at the same junction
+temperature here (self-heating is left to :mod:`livecurve.app.thermal`), which is what
+an ngspice ``.temp`` sweep of the exported deck computes; the tests compare the two.
+
+Outputs
+-------
+* CSV, one row per (temperature, input): ``temp_c,input_v,out0_v,out1_v,out2_v``.
+* PNG: per channel, the curves (top) and their shift from the curve at the reference
+  temperature (bottom, mV), one trace per temperature coloured from cold (blue) to hot (red).
+* Strip PNG: a reference frame — a grey step wedge, a continuous grey ramp and 75 % colour
+  bars made in code, or a given still — through the whole frame path
+  (:class:`livecurve.app.frameflow.FrameFlow`, dynamics included) at each temperature,
+  tiled with labels.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from livecurve.app.lut import check_live
+from livecurve.circuit.chain import ChainModel
+from livecurve.config.chainfile import ChainSpec
+from livecurve.errors import ConfigError
+from livecurve.signal.component import channel_names
+
+CSV_HEADER = "temp_c,input_v,out0_v,out1_v,out2_v"
+#: Junction temperatures accepted, kelvin: −55 °C … +150 °C, the widest range small-signal
+#: silicon parts are specified over (common practice); the device laws are fitted near 27 °C.
+T_MIN_K, T_MAX_K = 218.15, 423.15
+MAX_STEPS = 41
+#: 75 % colour bars as R′G′B′ fractions (white, yellow, cyan, green, magenta, red, blue,
+#: black): every channel at 0 or 0.75 (SMPTE RP 219 / ITU-R BT.709 75 % bars).
+BARS_75 = np.array([[1, 1, 1], [1, 1, 0], [0, 1, 1], [0, 1, 0], [1, 0, 1], [1, 0, 0],
+                    [0, 0, 1], [0, 0, 0]], dtype=np.float64) * 0.75
+
+
+def temperature_steps(from_k: float, to_k: float, steps: int) -> np.ndarray:
+    """*steps* evenly spaced temperatures from *from_k* to *to_k*, kelvin, checked.
+
+    Raises
+    ------
+    ConfigError
+        Steps not 2…41, range reversed or outside −55…+150 °C.
+    """
+    if isinstance(steps, bool) or not isinstance(steps, (int, np.integer)) \
+            or not 2 <= steps <= MAX_STEPS:
+        raise ConfigError(f"number of temperatures must be a whole number 2…{MAX_STEPS}",
+                          key="--steps", value=steps)
+    for key, t in (("--from", from_k), ("--to", to_k)):
+        if not (math.isfinite(t) and T_MIN_K <= t <= T_MAX_K):
+            raise ConfigError(f"temperature {t - 273.15:.1f} °C is outside −55 … +150 °C, "
+                              "the range the junction models are used over", key=key,
+                              value=f"{t - 273.15:g}C")
+    if not to_k > from_k:
+        raise ConfigError("--to must be above --from", key="--to",
+                          value=f"{to_k - 273.15:g}C")
+    return np.linspace(from_k, to_k, steps)
+
+
+def drift_curves(spec: ChainSpec, temps_k, *, points: int = 201,
+                 live: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Every channel's DC transfer at each temperature.
+
+    Parameters
+    ----------
+    spec : ChainSpec
+    temps_k : array_like (T,)
+        Junction temperatures, kelvin (all stages alike).
+    points : int
+        Sweep points over the chain's sweep range.
+    live : dict, optional
+        Knob values (default their starting values).
+
+    Returns
+    -------
+    vin : ndarray (N,)
+        Input volts.
+    out : ndarray (T, 3, N)
+        Output volts.
+    """
+    if isinstance(points, bool) or not isinstance(points, (int, np.integer)) \
+            or not 2 <= points <= 100001:
+        raise ConfigError("sweep points must be a whole number 2…100001", key="--points",
+                          value=points)
+    lv = check_live(spec, live)
+    model = ChainModel(spec)
+    vin = np.linspace(*spec.sweep_v, points)
+    temps = np.atleast_1d(np.asarray(temps_k, dtype=np.float64))
+    out = np.stack([model.transfer_all(vin, t_kelvin=float(t), live=lv) for t in temps])
+    return vin, out
+
+
+def drift_csv_text(vin: np.ndarray, out: np.ndarray, temps_k) -> str:
+    """CSV text with header ``temp_c,input_v,out0_v,out1_v,out2_v``."""
+    buf = io.StringIO()
+    buf.write(CSV_HEADER + "\n")
+    for t, o in zip(np.asarray(temps_k), out, strict=True):
+        rows = np.column_stack([np.full(vin.size, t - 273.15), vin, o.T])
+        np.savetxt(buf, rows, fmt="%.9g", delimiter=",")
+    return buf.getvalue()
+
+
+# ---------------------------------------------------------------------------- pictures
+def reference_frame(width: int = 480, height: int = 270) -> np.ndarray:
+    """A reference picture made in code, 16-bit full-range R′G′B′ (H, W, 3).
+
+    Top third: an 11-step grey wedge 0, 10 … 100 %; middle third: a continuous grey ramp
+    0 → 100 %; bottom third: 75 % colour bars (white, yellow, cyan, green, magenta, red,
+    blue, black).
+    """
+    if width < 16 or height < 6:
+        raise ConfigError("reference frame must be at least 16 × 6 pixels", key="size",
+                          value=(width, height))
+    x = np.arange(width)
+    wedge = np.minimum(x * 11 // width, 10) / 10.0
+    ramp = x / (width - 1)
+    bars = BARS_75[np.minimum(x * 8 // width, 7)]
+    h1, h2 = height // 3, 2 * height // 3
+    img = np.empty((height, width, 3))
+    img[:h1] = wedge[None, :, None]
+    img[h1:h2] = ramp[None, :, None]
+    img[h2:] = bars[None, :, :]
+    return np.round(img * 65535).astype(np.uint16)
+
+
+def strip_frames(spec: ChainSpec, temps_k, *, frame: np.ndarray | None = None,
+                 live: dict | None = None, fps: float = 30.0) -> list[np.ndarray]:
+    """The reference frame (or *frame*) through the whole frame path at each temperature.
+
+    Parameters
+    ----------
+    frame : ndarray (H, W, 3) uint8 or uint16, optional
+        Full-range R′G′B′ codes; default :func:`reference_frame`.
+    fps : float
+        Frame rate the frame is taken to ride on (for the video timing of line filters).
+
+    Returns
+    -------
+    list of ndarray (H, W, 3) uint8
+        R′G′B′ codes, one picture per temperature.
+    """
+    from livecurve.app.frameflow import FrameFlow
+    img = reference_frame() if frame is None else np.ascontiguousarray(frame)
+    if img.ndim != 3 or img.shape[2] != 3 or img.dtype not in (np.uint8, np.uint16):
+        raise ConfigError("a frame must be (H, W, 3) uint8 or uint16 codes", key="frame",
+                          value=f"{img.dtype} {img.shape}")
+    temps = np.atleast_1d(np.asarray(temps_k, dtype=np.float64))
+    h, w = img.shape[:2]
+    flow = FrameFlow(spec, width=w, height=h, fps=fps, t_kelvin=float(temps[0]),
+                     out_dtype=np.uint8)
+    for name, v in check_live(spec, live).items():
+        if flow.engine.state.live.get(name) != v:
+            flow.engine.set_live(name, v)
+    out = []
+    for i, t in enumerate(temps):
+        if i:
+            flow.engine.set_temperature(float(t))
+        out.append(flow.process(img, 0).copy())
+    return out
+
+
+def _load_still(source, width: int) -> np.ndarray:
+    if isinstance(source, np.ndarray):
+        img = source
+    else:
+        from livecurve.media.probe import read_image
+        img = read_image(source)
+    if img.shape[1] > width:
+        import cv2
+        h = max(2, round(img.shape[0] * width / img.shape[1]))
+        img = cv2.resize(img, (width, h), interpolation=cv2.INTER_AREA)
+    return np.ascontiguousarray(img)
+
+
+def tile_strip(frames: list, temps_k, *, columns: int = 4) -> np.ndarray:
+    """Tile pictures (RGB uint8) in a grid with a temperature label under each; BGR uint8."""
+    import cv2
+
+    from livecurve.app.plot import BG_BGR, TEXT_BGR
+    h, w = frames[0].shape[:2]
+    cols = min(columns, len(frames))
+    rows = math.ceil(len(frames) / cols)
+    pad, lab = 8, 26
+    img = np.full((rows * (h + lab + pad) + pad, cols * (w + pad) + pad, 3), BG_BGR,
+                  dtype=np.uint8)
+    for i, (fr, t) in enumerate(zip(frames, np.asarray(temps_k), strict=True)):
+        r, c = divmod(i, cols)
+        y0, x0 = pad + r * (h + lab + pad), pad + c * (w + pad)
+        img[y0:y0 + h, x0:x0 + w] = fr[:, :, ::-1]
+        cv2.putText(img, f"{t - 273.15:.1f} C", (x0 + 4, y0 + h + 19),
+                    cv2.FONT_HERSHEY_SIMPLEX, 0.55, TEXT_BGR, 1, cv2.LINE_AA)
+    return img
+
+
+def _ramp_bgr(k: int, n: int) -> tuple[int, int, int]:
+    """Cold (blue) to hot (red) trace colour, BGR."""
+    a = k / max(n - 1, 1)
+    cold, mid, hot = np.array([235, 150, 60]), np.array([200, 200, 200]), np.array([50, 70, 235])
+    c = cold + (mid - cold) * 2 * a if a < 0.5 else mid + (hot - mid) * (2 * a - 1)
+    return tuple(int(v) for v in c)
+
+
+def _ticks(lo: float, hi: float, n: int = 5) -> np.ndarray:
+    span = hi - lo
+    raw = span / n
+    mag = 10 ** math.floor(math.log10(raw))
+    step = next(m * mag for m in (1, 2, 2.5, 5, 10) if m * mag >= raw)
+    return np.arange(math.ceil(lo / step) * step, hi + 1e-12 * span, step)
+
+
+def family_panel(x: np.ndarray, ys, colours, *, title: str, xlabel: str, ylabel: str,
+                 size=(480, 300)) -> np.ndarray:
+    """Curves *ys* against *x*, each in its own BGR colour, on a grid; BGR uint8 image."""
+    import cv2
+
+    from livecurve.app.plot import BG_BGR, GRID_BGR, TEXT_BGR
+    w, h = size
+    img = np.full((h, w, 3), BG_BGR, dtype=np.uint8)
+    left, right, top, bottom = 64, 12, 30, 42
+    pw, ph = w - left - right, h - top - bottom
+    ys = [np.asarray(y, dtype=np.float64) for y in ys]
+    x0, x1 = float(x.min()), float(x.max())
+    y0, y1 = float(min(y.min() for y in ys)), float(max(y.max() for y in ys))
+    if y1 - y0 < 1e-9:
+        y0, y1 = y0 - 0.5, y1 + 0.5
+    y0, y1 = y0 - 0.05 * (y1 - y0), y1 + 0.05 * (y1 - y0)
+
+    def px(xv, yv):
+        return (left + (np.asarray(xv) - x0) / (x1 - x0) * pw,
+                top + (1 - (np.asarray(yv) - y0) / (y1 - y0)) * ph)
+
+    font = cv2.FONT_HERSHEY_SIMPLEX
+    for t in _ticks(x0, x1):
+        u, _ = px(t, y0)
+        cv2.line(img, (int(u), top), (int(u), top + ph), GRID_BGR, 1)
+        cv2.putText(img, f"{t:g}", (int(u) - 14, h - bottom + 16), font, 0.38, TEXT_BGR, 1,
+                    cv2.LINE_AA)
+    for t in _ticks(y0, y1):
+        _, v = px(x0, t)
+        cv2.line(img, (left, int(v)), (left + pw, int(v)), GRID_BGR, 1)
+        cv2.putText(img, f"{t:.4g}", (4, int(v) + 4), font, 0.38, TEXT_BGR, 1, cv2.LINE_AA)
+    cv2.rectangle(img, (left, top), (left + pw, top + ph), (110, 104, 98), 1)
+    for y, col in zip(ys, colours, strict=True):
+        u, v = px(x, y)
+        pts = np.stack([u, v], axis=1).round().astype(np.int32)
+        cv2.polylines(img, [pts], False, col, 1, cv2.LINE_AA)
+    cv2.putText(img, title, (left, 18), font, 0.45, TEXT_BGR, 1, cv2.LINE_AA)
+    cv2.putText(img, f"{xlabel}   [{ylabel}]", (left + pw // 2 - 60, h - 8), font, 0.4,
+                TEXT_BGR, 1, cv2.LINE_AA)
+    return img
+
+
+def drift_figure(vin: np.ndarray, out: np.ndarray, temps_k, spec: ChainSpec, *,
+                 ref_index: int = 0) -> np.ndarray:
+    """Curves (top row) and shift from the reference temperature (bottom row, mV) per
+    channel, with a colour key of the temperatures; BGR uint8."""
+    import cv2
+
+    from livecurve.app.plot import BG_BGR, TEXT_BGR
+    temps = np.asarray(temps_k)
+    n = len(temps)
+    cols = [_ramp_bgr(k, n) for k in range(n)]
+    names = channel_names(spec.space)
+    top_row, bot_row = [], []
+    for c in range(3):
+        top_row.append(family_panel(vin, list(out[:, c]), cols,
+                                    title=f"channel {c} ({names[c]})", xlabel="input (V)",
+                                    ylabel="output V"))
+        shift = (out[:, c] - out[ref_index, c]) * 1e3
+        bot_row.append(family_panel(vin, list(shift), cols,
+                                    title=f"shift from {temps[ref_index] - 273.15:.1f} C",
+                                    xlabel="input (V)", ylabel="mV"))
+    body = np.concatenate([np.concatenate(top_row, axis=1), np.concatenate(bot_row, axis=1)])
+    head = np.full((48, body.shape[1], 3), BG_BGR, dtype=np.uint8)
+    font = cv2.FONT_HERSHEY_SIMPLEX
+    cv2.putText(head, f"{spec.title}: DC transfer over temperature", (12, 20), font, 0.55,
+                TEXT_BGR, 1, cv2.LINE_AA)
+    x = 12
+    for t, col in zip(temps, cols, strict=True):
+        cv2.rectangle(head, (x, 30), (x + 14, 42), col, -1)
+        label = f"{t - 273.15:.4g} C"
+        cv2.putText(head, label, (x + 18, 41), font, 0.4, TEXT_BGR, 1, cv2.LINE_AA)
+        x += 26 + 8 * len(label)
+    return np.concatenate([head, body])
+
+
+# ---------------------------------------------------------------------------- the verb
+@dataclass
+class DriftReport:
+    """What :func:`run_drift` found and wrote.
+
+    Attributes
+    ----------
+    temps_k : ndarray (T,)
+    tempco_mv_per_k : list of float
+        Per channel, (out(T_last) − out(T_first))/(T_last − T_first) at the sweep point
+        nearest 0 V input, mV/K (0 for a channel with no stages).
+    max_shift_mv : list of float
+        Per channel, the largest |out(T) − out(T_first)| over the sweep and temperatures.
+    written : list of str
+    """
+
+    title: str
+    temps_k: np.ndarray
+    tempco_mv_per_k: list
+    max_shift_mv: list
+    names: tuple
+    written: list = field(default_factory=list)
+
+    def lines(self) -> list[str]:
+        t = self.temps_k
+        out = [f"{self.title}: {len(t)} temperatures {t[0] - 273.15:g} … "
+               f"{t[-1] - 273.15:g} °C"]
+        for c in range(3):
+            out.append(f"  channel {c} ({self.names[c]}): {self.tempco_mv_per_k[c]:+.3f} mV/K "
+                       f"at 0 V input; largest shift {self.max_shift_mv[c]:.2f} mV")
+        out += [f"  wrote {p}" for p in self.written]
+        return out
+
+
+def run_drift(spec: ChainSpec, *, from_k: float, to_k: float, steps: int = 6, csv=None,
+              png=None, strip_png=None, frame_source=None, points: int = 201,
+              live: dict | None = None, force: bool = True) -> DriftReport:
+    """``livecurve drift``: curves over temperature and a picture strip.
+
+    Parameters
+    ----------
+    spec : ChainSpec
+    from_k, to_k : float
+        Temperature range, kelvin (−55 … +150 °C).
+    steps : int
+        Number of temperatures, 2…41 (6 to 11 reads well).
+    csv, png, strip_png : path, optional
+        Outputs (see the module docstring); each written all-or-nothing.
+    frame_source : path or ndarray, optional
+        A still for the strip instead of the built-in reference frame (scaled down to
+        480 pixels wide).
+    points : int
+        Sweep points.
+    live : dict, optional
+        Knob values.
+    force : bool
+        Replace existing files.
+
+    Returns
+    -------
+    DriftReport
+        ``lines()`` gives the text the command line prints.
+    """
+    from livecurve.app.plot import write_png
+    from livecurve.media.atomic import atomic_output, check_target
+    temps = temperature_steps(from_k, to_k, steps)
+    for p in (csv, png, strip_png):
+        if p is not None:
+            check_target(p, force=force)
+    vin, out = drift_curves(spec, temps, points=points, live=live)
+    i0 = int(np.argmin(np.abs(vin)))
+    span = temps[-1] - temps[0]
+    tempco = [float((out[-1, c, i0] - out[0, c, i0]) / span * 1e3) for c in range(3)]
+    shift = [float(np.abs(out[:, c] - out[0, c]).max() * 1e3) for c in range(3)]
+    rep = DriftReport(spec.title, temps, tempco, shift, channel_names(spec.space))
+    if csv is not None:
+        with atomic_output(csv, force=force) as tmp:
+            tmp.write_text(drift_csv_text(vin, out, temps))
+        rep.written.append(str(csv))
+    if png is not None:
+        write_png(png, drift_figure(vin, out, temps, spec), force=force)
+        rep.written.append(str(png))
+    if strip_png is not None:
+        frame = None if frame_source is None else _load_still(frame_source, 480)
+        frames = strip_frames(spec, temps, frame=frame, live=live)
+        write_png(strip_png, tile_strip(frames, temps), force=force)
+        rep.written.append(str(strip_png))
+    return rep
+
