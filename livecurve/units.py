@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import math
 import re
+from decimal import Decimal
 
 from livecurve.errors import UnitError
 
@@ -94,14 +95,14 @@ def _parse_text(text: str, unit: str, *, key, path) -> float:
         if len(t) > len(sym) and t.endswith(sym):
             head = re.match(rf"^({_NUM})\s*({_PREFIXES})?\s*$", t[:-len(sym)].strip())
             if head:
-                return float(head.group(1)) * _PREFIX[head.group(2) or ""]
+                return _scaled(head.group(1), _PREFIX[head.group(2) or ""])
             break
     m = _RE_RNOT.match(text)
     if m:
         sign, whole, pfx, frac, sym = m.groups()
         mult = 1.0 if pfx == "R" else _PREFIX[pfx]
         _check_symbol(sym, unit, accepted, text, key, path)
-        x = float(f"{whole}.{frac}") * mult
+        x = _scaled(f"{whole}.{frac}", mult)
         return -x if sign == "-" else x
     m = _RE_PLAIN.match(text)
     if not m:
@@ -110,7 +111,12 @@ def _parse_text(text: str, unit: str, *, key, path) -> float:
     num, pfx, sym = m.group(1), m.group(2) or "", m.group(3)
     # "mA" reads as prefix m + symbol A; a lone prefix letter ("10m") is a prefix.
     _check_symbol(sym, unit, accepted, text, key, path)
-    return float(num) * _PREFIX[pfx]
+    return _scaled(num, _PREFIX[pfx])
+
+
+def _scaled(num: str, mult: float) -> float:
+    """num × mult rounded once, so "200u" is the double nearest 200e-6 (not 200 × 1e-6)."""
+    return float(Decimal(num) * Decimal(repr(mult)))
 
 
 def _check_symbol(sym: str, unit: str, accepted, text, key, path) -> None:

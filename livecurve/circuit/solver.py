@@ -7,8 +7,9 @@ Junctions are linearised about a limited junction voltage each iteration — the
 the whole step is further damped so no node moves more than :data:`MAX_STEP_V` per
 iteration.  Sweeps are warm-started from the previous point; a point that does not
 converge is reached by source stepping (continuation in the input from the last
-good point), and the very first point by GMIN stepping from a large shunt
-conductance down to none.
+good point); the very first point, and any point that continuation cannot reach,
+from a fresh operating point at zero input found by GMIN stepping from a large shunt
+conductance down to none, then source stepping from there.
 
 This module holds the numba kernels; :mod:`livecurve.circuit.netlist` compiles a
 netlist into the arrays they take.  It is the single source of truth for curves,
@@ -311,10 +312,55 @@ def _newton(kinds, nodes, params, branch, n_nodes, x, vin, vj, gshunt, J, f, dx)
 
 
 @nb.njit(cache=True)
-def _solve_sweep(kinds, nodes, params, branch, n_nodes, vin, x0, xs, ok):
+def _cold_start(kinds, nodes, params, branch, n_nodes, x, vj, J, f, dx):
+    """Operating point at zero input from x = 0 by GMIN stepping (shunt 1e-2 S down to none).
+
+    x and vj receive the result; returns False if a step fails.
+    """
+    x[:] = 0.0
+    vj[:, :] = 0.0
+    g = 1e-2
+    while g > 1e-13:
+        if _newton(kinds, nodes, params, branch, n_nodes, x, 0.0, vj, g, J, f, dx) < 0:
+            return False
+        g *= 0.1
+    return _newton(kinds, nodes, params, branch, n_nodes, x, 0.0, vj, 0.0, J, f, dx) >= 0
+
+
+@nb.njit(cache=True)
+def _source_step(kinds, nodes, params, branch, n_nodes, x, vj, x_from, vj_from, v_from, v_to,
+                 J, f, dx):
+    """Continuation in the input from (x_from at v_from) to v_to, in 2, 8, … 2048 equal steps.
+
+    x and vj receive the result; returns False if every subdivision fails.
+    """
+    sub = 2
+    while sub <= 4096:
+        x[:] = x_from
+        vj[:, :] = vj_from
+        fine = True
+        for j in range(1, sub + 1):
+            v = v_from + (v_to - v_from) * j / sub
+            if _newton(kinds, nodes, params, branch, n_nodes, x, v, vj, 0.0, J, f, dx) < 0:
+                fine = False
+                break
+        if fine:
+            return True
+        sub *= 4
+    return False
+
+
+@nb.njit(cache=True)
+def _solve_sweep(kinds, nodes, params, branch, n_nodes, vin, x0, warm, xs, ok):
     """Solve the netlist for every input value in order, warm-starting each from the last.
 
-    xs[i] receives the solution for vin[i]; ok[i] whether it converged.
+    A point that does not converge from the last good one is reached by source stepping
+    from it; failing that (e.g. an op-amp whose saturated output gives Newton no slope to
+    follow back), by a fresh operating point at zero input (GMIN stepping) and source
+    stepping from there — the fallback SPICE's DC sweep takes too.
+    xs[i] receives the solution for vin[i]; ok[i] whether it converged.  With *warm*,
+    the first point is tried from x0 (the solution of a nearby problem, e.g. the previous
+    sweep of the same stage at another knob value) before any of that.
     """
     n = x0.shape[0]
     J = np.zeros((n, n))
@@ -324,49 +370,29 @@ def _solve_sweep(kinds, nodes, params, branch, n_nodes, vin, x0, xs, ok):
     vj = np.zeros((kinds.shape[0], 2))
     x_good = x.copy()
     vj_good = vj.copy()
+    x_cold = x.copy()
+    vj_cold = vj.copy()
     v_good = 0.0
     have_good = False
+    have_cold = False
+    tried_cold = False
     for i in range(vin.shape[0]):
-        its = -1
-        if have_good:
-            its = _newton(kinds, nodes, params, branch, n_nodes, x, vin[i], vj, 0.0, J, f, dx)
-        if its < 0:
-            if not have_good:
-                # first point: GMIN stepping at zero input, then source stepping to vin[i]
-                x[:] = 0.0
-                vj[:, :] = 0.0
-                g = 1e-2
-                good = True
-                while g > 1e-13:
-                    if _newton(kinds, nodes, params, branch, n_nodes, x, 0.0, vj, g, J, f,
-                               dx) < 0:
-                        good = False
-                        break
-                    g *= 0.1
-                if good and _newton(kinds, nodes, params, branch, n_nodes, x, 0.0, vj, 0.0,
-                                    J, f, dx) >= 0:
-                    x_good[:] = x
-                    vj_good[:, :] = vj
-                    v_good = 0.0
-                    have_good = True
-            if have_good:
-                # source stepping from the last good point, halving until it goes through
-                sub = 2
-                while sub <= 4096:
-                    x[:] = x_good
-                    vj[:, :] = vj_good
-                    fine = True
-                    for j in range(1, sub + 1):
-                        v = v_good + (vin[i] - v_good) * j / sub
-                        if _newton(kinds, nodes, params, branch, n_nodes, x, v, vj, 0.0, J, f,
-                                   dx) < 0:
-                            fine = False
-                            break
-                    if fine:
-                        its = 1
-                        break
-                    sub *= 4
-        if its >= 0:
+        done = False
+        if have_good or (i == 0 and warm):
+            done = _newton(kinds, nodes, params, branch, n_nodes, x, vin[i], vj, 0.0, J, f,
+                           dx) >= 0
+            if not done and have_good:
+                done = _source_step(kinds, nodes, params, branch, n_nodes, x, vj, x_good,
+                                    vj_good, v_good, vin[i], J, f, dx)
+        if not done:
+            if not tried_cold:
+                tried_cold = True
+                have_cold = _cold_start(kinds, nodes, params, branch, n_nodes, x_cold,
+                                        vj_cold, J, f, dx)
+            if have_cold:
+                done = _source_step(kinds, nodes, params, branch, n_nodes, x, vj, x_cold,
+                                    vj_cold, 0.0, vin[i], J, f, dx)
+        if done:
             xs[i, :] = x
             ok[i] = True
             x_good[:] = x

@@ -87,7 +87,8 @@ def chain_deck(model, *, t_kelvin: float | None = None, live: dict | None = None
     points : int
         Points in the ``.dc`` sweep over *sweep_v* (default the chain's sweep range).
     data_file : str, optional
-        If given, a ``.control`` block writes ``input, out0, out1, out2`` there with ``wrdata``.
+        If given, a ``.control`` block writes ``input, out0, out1, out2`` there with ``wrdata``;
+        otherwise a ``.print dc`` line makes ``ngspice -b`` run the sweep and print it.
     temps_k : dict, optional
         Stage id → junction temperature (self-heating), as instance ``temp=``.
     """
@@ -115,6 +116,9 @@ def chain_deck(model, *, t_kelvin: float | None = None, live: dict | None = None
     if data_file:
         lines += [".control", "set wr_singlescale", "set wr_vecnames", "run",
                   f"wrdata {data_file} v(out0) v(out1) v(out2)", "quit", ".endc"]
+    else:
+        # ngspice -b runs no analysis in a deck without an output request
+        lines.append(".print dc v(out0) v(out1) v(out2)")
     lines.append(".end")
     return "\n".join(lines) + "\n"
 

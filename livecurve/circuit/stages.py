@@ -92,18 +92,23 @@ def _reference_divider(net: Netlist, p: dict, node: str = "tap") -> None:
 
 
 def _junction(net: Netlist, name: str, a: str, c: str, dev: DiodeModel | BjtModel,
-              ground: str = "0") -> None:
-    """A junction conducting from *a* to *c*: a diode, or a BJT wired as a transdiode.
+              ground: str = "0", sum_node: str = "sum") -> None:
+    """A junction between *a* and *c*: a diode conducting from *a* to *c*, or a BJT
+    wired as a transdiode.
 
-    For an NPN, collector at *a*, emitter at *c*, base at *ground*; for a PNP,
-    emitter at *a*, collector at *c*.
+    A BJT always has its base at *ground* and its collector at *sum_node* (the op-amp's
+    summing node, held at 0 V, so VCB ≈ 0 and the transistor runs forward-active as in
+    AN-30 / MT-077); its emitter goes to the other of *a*, *c*.  An NPN then conducts
+    from the summing node into its emitter node and a PNP the other way, so each
+    polarity serves one sign of input current.
     """
     if isinstance(dev, DiodeModel):
         net.diode(name, a, c, dev)
-    elif dev.polarity == "npn":
-        net.bjt(name, a, ground, c, dev)
-    else:
-        net.bjt(name, c, ground, a, dev)
+        return
+    if sum_node not in (a, c):
+        raise ValueError(f"a transdiode needs the summing node '{sum_node}' as one end")
+    emitter = c if a == sum_node else a
+    net.bjt(name, sum_node, ground, emitter, dev)
 
 
 _DIV = (Param("v_ref", "V", 10.0, 1, "± reference volts across the offset pot"),

@@ -236,12 +236,12 @@ def apply_table(plane: np.ndarray, table: Table, *, control=None, out=None) -> n
 def _lut1d(x, t, lo, inv, out):
     h, w = x.shape
     top = t.shape[0] - 1
-    last = np.float32(top) - np.float32(1e-3)
+    last = np.float32(top)
     for r in nb.prange(h):
         for c in range(w):
             p = (x[r, c] - lo) * inv
             p = min(max(p, np.float32(0.0)), last)
-            i = int(p)
+            i = min(int(p), top - 1)  # p == top reads the last interval at f = 1
             f = p - np.float32(i)
             out[r, c] = t[i] + f * (t[i + 1] - t[i])
 
@@ -250,16 +250,18 @@ def _lut1d(x, t, lo, inv, out):
 def _lut2d_rows(x, t, lo, inv, cpos, out):
     # t is laid out (M, N): the two curves a row needs are two contiguous rows of t
     h, w = x.shape
-    last = np.float32(t.shape[1] - 1) - np.float32(1e-3)
+    top = t.shape[1] - 1
+    last = np.float32(top)
     for r in nb.prange(h):
-        j = int(cpos[r])
+        # cpos may round up to M - 1 in float32: read the last interval at g = 1 then
+        j = min(int(cpos[r]), t.shape[0] - 2)
         g = cpos[r] - np.float32(j)
         t0 = t[j]
         t1 = t[j + 1]
         for c in range(w):
             p = (x[r, c] - lo) * inv
             p = min(max(p, np.float32(0.0)), last)
-            i = int(p)
+            i = min(int(p), top - 1)
             f = p - np.float32(i)
             a = t0[i] + g * (t1[i] - t0[i])
             b = t0[i + 1] + g * (t1[i + 1] - t0[i + 1])
@@ -269,14 +271,15 @@ def _lut2d_rows(x, t, lo, inv, cpos, out):
 @nb.njit(cache=True, parallel=True, fastmath=True)
 def _lut2d_pixels(x, t, lo, inv, cpos, out):
     h, w = x.shape
-    last = np.float32(t.shape[1] - 1) - np.float32(1e-3)
+    top = t.shape[1] - 1
+    last = np.float32(top)
     for r in nb.prange(h):
         for c in range(w):
-            j = int(cpos[r, c])
+            j = min(int(cpos[r, c]), t.shape[0] - 2)
             g = cpos[r, c] - np.float32(j)
             p = (x[r, c] - lo) * inv
             p = min(max(p, np.float32(0.0)), last)
-            i = int(p)
+            i = min(int(p), top - 1)
             f = p - np.float32(i)
             a = t[j, i] + g * (t[j + 1, i] - t[j, i])
             b = t[j, i + 1] + g * (t[j + 1, i + 1] - t[j, i + 1])
