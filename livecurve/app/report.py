@@ -6,6 +6,7 @@ import numpy as np
 
 from livecurve.circuit.chain import ChainModel
 from livecurve.config.chainfile import ChainSpec
+from livecurve.engine.tables import TARGET_ERR_V
 from livecurve.signal.component import channel_names
 from livecurve.units import format_value
 
@@ -78,7 +79,10 @@ def chain_summary(spec: ChainSpec, engine=None, *, pixel_period_s: float = 1 / 7
                          f"{' knob ' + row['knob'] if row['knob'] else ''}: "
                          f"{'×'.join(map(str, row['table_n'] or ()))} points, bound "
                          f"{(row['err_v'] or 0) * 1e3:.4f} mV, built in "
-                         f"{row['build_s'] * 1e3:.1f} ms")
+                         f"{row['build_s'] * 1e3:.1f} ms"
+                         + ("  (above the 0.05 mV goal: the grid reached its size limit "
+                            "on a steep part of the curve)"
+                            if (row['err_v'] or 0) > TARGET_ERR_V else ""))
     if spec.live:
         lines.append("  live parameters:")
         for ls in spec.live.values():

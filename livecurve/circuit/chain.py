@@ -40,14 +40,29 @@ class ChainModel:
         return {k: v.value for k, v in self.spec.live.items()}
 
     def values(self, channel: int, stage: StageSpec, live: dict | None = None) -> dict:
-        """(stage param name → value) after per-channel overrides and knob values."""
+        """(stage param name → value) after per-channel overrides and knob values.
+
+        A knob is ganged across the channels it reaches.  Where a channel also has its own
+        override of the knob's parameter (a board trimmed differently), the knob moves that
+        board by the same step: the override's difference from the nominal is kept (added
+        for volts, fractions and plain numbers; as a ratio for ohms, amps and farads).
+        """
+        from livecurve.config.chainfile import nominal_value
         vals = dict(self.spec.overrides.get(channel, {}))
         out = {name: v for (sid, name), v in vals.items() if sid == stage.id}
         live = self.live_defaults() if live is None else {**self.live_defaults(), **live}
         for lname, v in live.items():
             ls = self.spec.live[lname]
-            if ls.stage == stage.id:
+            if ls.stage != stage.id:
+                continue
+            own = out.get(ls.param)
+            nominal = nominal_value(stage, ls.param)
+            if own is None or nominal is None or own == nominal:
                 out[ls.param] = v
+            elif ls.unit in ("ohm", "A", "F") and nominal != 0:
+                out[ls.param] = v * own / nominal
+            else:
+                out[ls.param] = v + (own - nominal)
         return out
 
     def netlist(self, channel: int, stage: StageSpec, live: dict | None = None) -> Netlist:
