@@ -147,7 +147,8 @@ def build_table_2d(fn: Callable[[np.ndarray, float], np.ndarray], lo_v: float, h
     n = N_START
     solves = 0
     for c in axis(3):
-        t = build_table_1d(lambda v, c=c: fn(v, c), lo_v, hi_v, target_v=target_v,
+        # each axis gets half the target: a bilinear read adds the two axes' errors
+        t = build_table_1d(lambda v, c=c: fn(v, c), lo_v, hi_v, target_v=0.5 * target_v,
                            n_max=n_max)
         n = max(n, t.n)
         solves += t.n_solves
@@ -166,7 +167,7 @@ def build_table_2d(fn: Callable[[np.ndarray, float], np.ndarray], lo_v: float, h
             a = cols[j].astype(np.float32).astype(np.float64)
             b = cols[j + 1].astype(np.float32).astype(np.float64)
             err = max(err, float(np.max(np.abs(0.5 * (a + b) - mid_cols[j]))))
-        if err <= target_v or 2 * m - 1 > m_max:
+        if err <= 0.5 * target_v or 2 * m - 1 > m_max:
             break
         merged = []
         for j in range(len(cm)):
