@@ -119,7 +119,9 @@ def cmd_devices(args) -> int:
 def cmd_preview(args) -> int:
     from livecurve.app.preview import run_preview
     return int(run_preview(args.chain, args.source, snapshot=args.snapshot, at_s=args.at,
-                           controls=args.control or (), exact=args.exact) or 0)
+                           controls=args.control or (), exact=args.exact,
+                           monitors=args.monitors, max_frames=args.max_frames,
+                           force=args.force) or 0)
 
 
 def cmd_drift(args) -> int:
@@ -211,6 +213,10 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--at", type=float, default=None, help="time of the snapshot, seconds")
     c.add_argument("--control", action="append", metavar="[NAME=]SOURCE")
     c.add_argument("--exact", action="store_true")
+    c.add_argument("--monitors", help="which monitors to show, e.g. waveform,vectorscope "
+                                      "(waveform, vectorscope, transfer, alarms)")
+    c.add_argument("--max-frames", type=int, default=None, help="stop after this many frames")
+    c.add_argument("--force", action="store_true", help="overwrite the --snapshot file")
     c.set_defaults(func=cmd_preview)
 
     c = sub.add_parser("devices", help="list audio inputs for --control device:...")

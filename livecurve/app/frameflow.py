@@ -31,8 +31,21 @@ def resolve_standard(spec: ChainSpec, clip_matrix: str | None, width: int, heigh
 
 
 def resolve_timing(spec: ChainSpec, width: int, height: int, fps: float) -> ClipTiming:
-    """Video timing from the chain file's ``format`` or inferred from the clip."""
-    fmt = infer_format(width, height, fps) if spec.format == "auto" else get_format(spec.format)
+    """Video timing from the chain file's ``format`` or inferred from the clip.
+
+    A clip at a rate no standard format runs at (e.g. 10 or 12 frames/s) rides on the line
+    structure of the progressive 30 frames/s format nearest its height, with the pixel clock
+    scaled so the frame rate is the clip's (samples × lines × rate = clock)."""
+    if spec.format != "auto":
+        return ClipTiming(get_format(spec.format), width, height)
+    try:
+        fmt = infer_format(width, height, fps)
+    except ConfigError:
+        import dataclasses
+        base = infer_format(width, height, 30.0)
+        fmt = dataclasses.replace(
+            base, name=f"{base.active_h}p{fps:g} (lines of {base.name})", frame_rate=float(fps),
+            pixel_clock_hz=base.samples_per_line * base.lines_per_frame * float(fps))
     return ClipTiming(fmt, width, height)
 
 
@@ -139,6 +152,14 @@ class FrameFlow:
         self.fps = float(fps)
         #: Control values used for the last frame: name → per-row array (or scalar).
         self.last_controls: dict = {}
+
+    def live_inputs(self):
+        """Control sources that capture from an audio device (the caller starts/stops them)."""
+        for _cs, cmap in self.controls:
+            src = cmap.source
+            for part in getattr(src, "sources", (src,)):
+                if getattr(part, "is_live", False) and hasattr(part, "start"):
+                    yield part
 
     def control_values(self, frame_index: int) -> dict:
         """Knob values for every bound control at the times of this frame's rows/pixels."""

@@ -115,6 +115,9 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
                          clip_matrix=info.colour_matrix, controls=bound, exact=exact,
                          out_dtype=out_dtype, t_kelvin=t_kelvin, drift=drift)
         flash = _flash_meter(flow, info.fps) if (flash_check and bound) else None
+        live = list(flow.live_inputs())
+        for li in live:
+            li.start()
         bar = Progress(n_total, enabled=progress)
         t0 = time.perf_counter()
         done = 0
@@ -148,6 +151,10 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
                     raise OutputError(f"{out}: the source gave no frames")
         bar.update(done, force=True)
         bar.close()
+        for li in live:
+            if not li.status.ok:
+                print(f"livecurve: control input {li.name}: {li.status}", file=sys.stderr)
+            li.stop()
     el = time.perf_counter() - t0
     return RenderReport(str(out), done, el, done / el if el > 0 else 0.0,
                         flow.engine.worst_table_err_v,

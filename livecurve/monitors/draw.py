@@ -137,7 +137,7 @@ def draw_waveform(counts, *, space: str, lo_mv: float = -50.0, hi_mv: float = 75
     space = check_space(space)
     h, w = _check_size(size, "size")
     img = check_out(out, (h, w, 3), np.uint8)
-    img[:] = BACKGROUND
+    cv2.rectangle(img, (0, 0), (img.shape[1], img.shape[0]), BACKGROUND, -1)  # fast fill
     rows = counts.shape[1]
     shown = (0, 1, 2) if layout == "side_by_side" else (int(channel),)
     if any(c not in (0, 1, 2) for c in shown):
@@ -265,7 +265,7 @@ def draw_transfer(view: TransferView, *, channels=(0, 1, 2), space: str = "ypbpr
         raise ConfigError("expected a TransferView", key="view", value=type(view).__name__)
     h, w = _check_size(size, "size")
     img = check_out(out, (h, w, 3), np.uint8)
-    img[:] = BACKGROUND
+    cv2.rectangle(img, (0, 0), (img.shape[1], img.shape[0]), BACKGROUND, -1)  # fast fill
     colours = _trace_colours(space)
     names = channel_names(space)
     ml, mr, mt, strip = 40, 6, 14, max(16, h // 6)
@@ -337,7 +337,7 @@ def draw_alarms(alarms: LevelAlarms, *, size=(120, 320), out=None) -> np.ndarray
         raise ConfigError("expected LevelAlarms", key="alarms", value=type(alarms).__name__)
     h, w = _check_size(size, "size")
     img = check_out(out, (h, w, 3), np.uint8)
-    img[:] = BACKGROUND
+    cv2.rectangle(img, (0, 0), (img.shape[1], img.shape[0]), BACKGROUND, -1)  # fast fill
     n = max(alarms.total, 1)
     line = max(14, (h - 8) // 5)
     cols = (6, int(w * 0.22), int(w * 0.47), int(w * 0.72))
@@ -456,7 +456,7 @@ def compose(panels, *, columns: int = 2, tile_size=(270, 480), gap: int = 4,
     H = nrows * th + (nrows - 1) * gap
     W = columns * tw + (columns - 1) * gap
     img = check_out(out, (H, W, 3), np.uint8)
-    img[:] = (8, 8, 8)
+    img.fill(8)
     for i, item in enumerate(items):
         try:
             name, panel = item

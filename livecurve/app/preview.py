@@ -1,0 +1,793 @@
+"""Live preview window and headless snapshots of a chain working on a clip, still or camera.
+
+The window (OpenCV ``imshow``/``waitKeyEx``) shows the composite of
+:mod:`livecurve.app.overlay`: the processed picture, the monitors and a status panel.
+It keeps real time by *dropping* frames, never by slowing down: a background thread
+decodes into a buffer of two frames, each frame is due at ``seq / fps`` seconds on a
+wall clock (``seq`` counts decoded frames, across loops), and a frame whose time has
+passed by more than one frame period is dropped whenever a newer one is at hand.
+The status panel shows the achieved rate and the number of dropped frames.
+
+Live parameters are turned by key (:mod:`livecurve.app.keys`) or by slider; their tables
+are rebuilt on a worker thread on a copy of the engine (``FrameEngine.set_live``) and
+swapped in when ready, the newest request winning, so the picture keeps running (the
+window thread's numba kernels drop to one thread meanwhile, leaving the other core to the
+build).  The chain file is watched (mtime and size, twice a second): an edit is reloaded and a new
+frame flow built on the same worker; a bad edit keeps the last good chain and shows the
+error over the picture.
+
+Every action prints one JSON line on stdout, ``preview {...}`` (events ``ready``,
+``key``, ``slider``, ``knobs``, ``reload``, ``snapshot``, ``ended``, ``end``), so scripts
+and tests can follow the window.
+
+Display check
+    ``cv2.imshow`` without a reachable X server ends the whole process (Qt aborts; it is
+    not a Python exception), and so does ``QT_QPA_PLATFORM=offscreen`` with the
+    opencv-python wheel.  Before any window is made, :func:`display_problem` opens and
+    closes a connection with Xlib's ``XOpenDisplay`` (X Window System, libX11) and the
+    preview refuses with :class:`~livecurve.errors.DeviceError` pointing to
+    ``--snapshot``.  The wheel also points ``QT_QPA_FONTDIR`` at a folder it does not
+    ship; :func:`set_qt_font_dir` points it at a system font folder first.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import ctypes
+import ctypes.util
+import json
+import math
+import os
+import queue
+import sys
+import threading
+import time
+from collections import deque
+from pathlib import Path
+
+import numpy as np
+
+from livecurve.app.frameflow import FrameFlow, bind_controls
+from livecurve.app.keys import (
+    COARSE_STEPS,
+    FINE_STEPS,
+    KnobScale,
+    Rebuilder,
+    SliderWindow,
+    action_for,
+    engine_with,
+)
+from livecurve.app.overlay import MONITORS, Composer, Knob, Status, ViewState, check_monitors
+from livecurve.config.chainfile import load_chain
+from livecurve.errors import DeviceError, LivecurveError, MediaError
+
+#: Font folders tried for Qt's labels (Debian's DejaVu first).
+FONT_DIRS = ("/usr/share/fonts/truetype/dejavu", "/usr/share/fonts/truetype",
+             "/usr/share/fonts")
+#: Seconds between looks at the chain file's mtime.
+WATCH_PERIOD_S = 0.5
+#: Frames the decoder may hold ahead of the window.
+BUFFER_FRAMES = 2
+
+
+def emit(event: str, stream=None, **fields) -> None:
+    """Print one ``preview {json}`` state line and flush it."""
+    stream = stream or sys.stdout
+    stream.write("preview " + json.dumps({"event": event, **fields}, default=str) + "\n")
+    stream.flush()
+
+
+# ---- display ------------------------------------------------------------------------------
+def display_problem(env=None) -> str | None:
+    """Why no window can be opened here, or None when an X display answers."""
+    env = os.environ if env is None else env
+    plat = env.get("QT_QPA_PLATFORM", "")
+    if plat and plat != "xcb":
+        return (f"QT_QPA_PLATFORM={plat} is set; OpenCV's window needs an X display "
+                "(unset it, or use xcb)")
+    disp = env.get("DISPLAY", "")
+    if not disp:
+        if env.get("WAYLAND_DISPLAY"):
+            return "WAYLAND_DISPLAY is set but DISPLAY is not; the window needs X (XWayland)"
+        return "no display: DISPLAY is not set"
+    name = ctypes.util.find_library("X11") or "libX11.so.6"
+    try:
+        xlib = ctypes.CDLL(name)
+    except OSError as exc:
+        return f"cannot load libX11 to reach the display {disp!r}: {exc}"
+    xlib.XOpenDisplay.restype = ctypes.c_void_p
+    xlib.XOpenDisplay.argtypes = [ctypes.c_char_p]
+    xlib.XCloseDisplay.argtypes = [ctypes.c_void_p]
+    handle = xlib.XOpenDisplay(disp.encode())
+    if not handle:
+        return f"cannot connect to the X display {disp!r}"
+    xlib.XCloseDisplay(handle)
+    return None
+
+
+def require_display() -> None:
+    """Raise DeviceError (pointing to ``--snapshot``) unless a window can be opened."""
+    why = display_problem()
+    if why:
+        raise DeviceError(f"preview window: {why}. Without a display, write the same picture "
+                          "and monitors to a file with --snapshot OUT.png [--at SECONDS]")
+
+
+def set_qt_font_dir() -> str | None:
+    """Point ``QT_QPA_FONTDIR`` at a system font folder if it names a missing one."""
+    cur = os.environ.get("QT_QPA_FONTDIR", "")
+    if cur and os.path.isdir(cur) and any(Path(cur).iterdir()):
+        return cur
+    for d in FONT_DIRS:
+        if os.path.isdir(d):
+            os.environ["QT_QPA_FONTDIR"] = d
+            return d
+    return None
+
+
+# ---- clock and decoder ----------------------------------------------------------------------
+class PlayClock:
+    """Wall-clock schedule of frames: frame *seq* is due at ``origin + seq / fps``.
+
+    Parameters
+    ----------
+    fps : float
+        Source rate, Hz.
+    now : float
+        Wall-clock time (s) at which frame 0 is due.
+    paced : bool
+        False: every frame is due at once and none is ever late (throughput runs).
+    """
+
+    def __init__(self, fps: float, now: float, *, paced: bool = True):
+        self.period_s = 1.0 / float(fps)
+        self.origin_s = float(now)
+        self.paced = paced
+        self.paused_at: float | None = None
+
+    def due(self, seq: int) -> float:
+        """Wall-clock time (s) frame *seq* is due."""
+        return self.origin_s + seq * self.period_s if self.paced else -math.inf
+
+    def late(self, seq: int, now: float) -> bool:
+        """True when frame *seq* is more than one frame period overdue (never when paused)."""
+        return self.paced and self.paused_at is None and now - self.due(seq) > self.period_s
+
+    def pause(self, now: float) -> None:
+        if self.paused_at is None:
+            self.paused_at = now
+
+    def resume(self, now: float, next_seq: int) -> None:
+        """Play on: frame *next_seq* is due *now*."""
+        self.origin_s = now - next_seq * self.period_s
+        self.paused_at = None
+
+
+class FramePump:
+    """Decode a source on a background thread into a buffer of at most *capacity* frames.
+
+    When the buffer is full and its oldest frame is late, that frame is dropped for the
+    newer one, so the buffer holds the freshest frames while the decoder runs no faster
+    than real time.  With ``loop`` off, the pump stops at the end of a pass (``ended``)
+    and holds the first frame of the next pass until :meth:`restart`.
+
+    Attributes
+    ----------
+    dropped : int
+        Frames decoded but never shown (dropped here or by :meth:`take`).
+    error : Exception or None
+        What stopped the decoder, other than the end of the source.
+    """
+
+    def __init__(self, src, clock: PlayClock, *, capacity: int = BUFFER_FRAMES,
+                 loop: bool = True, clock_fn=time.perf_counter):
+        self.src = src
+        self.clock = clock
+        self.capacity = int(capacity)
+        self.loop = loop
+        self.dropped = 0
+        self.error: Exception | None = None
+        self.ended = False
+        self._now = clock_fn
+        self._cond = threading.Condition()
+        self._buf: deque = deque()
+        self._seq = 0
+        self._lap = 0
+        self._held = None
+        self._restart = False
+        self._stop = False
+        self._thread = threading.Thread(target=self._run, name="livecurve-decode", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        try:
+            while True:
+                with self._cond:
+                    while self.ended and not (self._restart or self._stop):
+                        self._cond.wait()
+                    if self._stop:
+                        return
+                    self._restart = False
+                    held, self._held = self._held, None
+                fr = held if held is not None else next(self.src)
+                if fr.lap != self._lap:
+                    self._lap = fr.lap
+                    if not self.loop:
+                        with self._cond:
+                            self._held, self.ended = fr, True
+                            self._cond.notify_all()
+                        continue
+                self._put(fr)
+        except StopIteration:
+            pass
+        except Exception as exc:  # noqa: BLE001 - handed to the window thread to report
+            self.error = exc
+        with self._cond:
+            self.ended = True
+            self._cond.notify_all()
+
+    def _put(self, fr) -> None:
+        with self._cond:
+            seq = self._seq
+            self._seq += 1
+            while not self._stop:
+                if len(self._buf) < self.capacity:
+                    self._buf.append((seq, fr))
+                    break
+                if self.clock.late(self._buf[0][0], self._now()):
+                    self._buf.popleft()
+                    self.dropped += 1
+                    self._buf.append((seq, fr))
+                    break
+                self._cond.wait(self.clock.period_s / 4)
+            self._cond.notify_all()
+
+    def take(self, now: float, *, wait_s: float = 0.0):
+        """The next frame to show as ``(seq, Frame)``, or None.
+
+        Late frames are dropped while a newer one is buffered; the last one is returned
+        even when late (nothing fresher exists).
+        """
+        with self._cond:
+            if not self._buf and wait_s > 0 and not self.ended:
+                self._cond.wait(wait_s)
+            while len(self._buf) > 1 and self.clock.late(self._buf[0][0], now):
+                self._buf.popleft()
+                self.dropped += 1
+            item = self._buf.popleft() if self._buf else None
+            self._cond.notify_all()
+            return item
+
+    def buffered(self) -> list[int]:
+        """Sequence numbers of the frames waiting in the buffer, oldest first."""
+        with self._cond:
+            return [seq for seq, _ in self._buf]
+
+    @property
+    def next_seq(self) -> int:
+        """The number the next decoded frame will get."""
+        with self._cond:
+            return self._seq
+
+    @property
+    def exhausted(self) -> bool:
+        """The decoder has ended and every buffered frame was taken."""
+        with self._cond:
+            return self.ended and not self._buf
+
+    def restart(self) -> None:
+        """After the end of a pass: go on with the next pass."""
+        with self._cond:
+            self.ended = False
+            self._restart = True
+            self._cond.notify_all()
+
+    def close(self) -> None:
+        with self._cond:
+            self._stop = True
+            self._cond.notify_all()
+        self._thread.join(timeout=2.0)
+
+
+def _live_inputs(flow):
+    """Control sources of *flow* that capture from a device (started and stopped here)."""
+    return flow.live_inputs()
+
+
+# ---- the per-frame work, shared by window, snapshot and benchmark ---------------------------
+class PreviewSession:
+    """A chain, its frame flow, the view and the knobs: everything but the window.
+
+    Parameters
+    ----------
+    chain_path : str or os.PathLike
+    info : MediaInfo
+        The opened source's facts (size, rate, matrix, kind).
+    controls : sequence of str
+        ``--control`` options (:func:`livecurve.app.frameflow.bind_controls`).
+    exact : bool
+        Solver per pixel instead of tables.
+    monitors : sequence of str or None
+        Monitors shown at the start (None: all of :data:`~livecurve.app.overlay.MONITORS`).
+    scope_step : int or None
+        Lines and samples between those the scopes read (None: by picture size, see
+        :mod:`livecurve.app.overlay`).
+    """
+
+    def __init__(self, chain_path, info, *, controls=(), exact: bool = False, monitors=None,
+                 scope_step: int | None = None):
+        self.chain_path = Path(chain_path)
+        self.info = info
+        self.control_items = list(controls or ())
+        self.exact = bool(exact)
+        self.view = ViewState(monitors=check_monitors(monitors))
+        self.composer = Composer(scope_step=scope_step)
+        self.flow = self.build_flow({})
+        self.wanted = dict(self.flow.engine.state.live)
+        #: Knobs the user has set since the start or the last reset (kept over reloads).
+        self.touched: set[str] = set()
+        self.selected = 0
+        self.error = ""
+        self.note = ""
+        self.canvas = None
+
+    @property
+    def spec(self):
+        return self.flow.spec
+
+    @property
+    def use_clip_index(self) -> bool:
+        """Controls follow the clip's own frame numbers (clips and sequences, no live input)."""
+        return self.info.kind in ("clip", "sequence") and not any(_live_inputs(self.flow))
+
+    def build_flow(self, carry: dict) -> FrameFlow:
+        """Load the chain file and build a frame flow, with the user's knob values carried
+        over (those inside the reloaded chain's ranges)."""
+        spec = load_chain(self.chain_path)
+        clip = self.info.path if self.info.kind == "clip" else None
+        bound = bind_controls(spec, self.control_items, clip_path=clip)
+        flow = FrameFlow(spec, width=self.info.width, height=self.info.height,
+                         fps=self.info.fps, clip_matrix=self.info.colour_matrix,
+                         controls=bound, exact=self.exact, out_dtype=np.uint8)
+        keep = {n: v for n, v in carry.items()
+                if n in spec.live and spec.live[n].lo <= v <= spec.live[n].hi
+                and n not in flow.engine.modulated}
+        if keep:
+            flow.engine = engine_with(flow.engine, keep)
+        return flow
+
+    # -- knobs -----------------------------------------------------------------------------
+    def knob_names(self) -> list[str]:
+        return list(self.spec.live)
+
+    def driven_by(self, name: str) -> str | None:
+        for cs, _ in self.flow.controls:
+            if cs.drives == name:
+                return cs.name
+        return None
+
+    def knobs(self) -> list[Knob]:
+        out = []
+        ctl = self.flow.last_controls
+        for name, ls in self.spec.live.items():
+            drv = self.driven_by(name)
+            value = self.wanted.get(name, ls.value)
+            if drv and name in ctl:  # the control's present value (mean over the frame)
+                value = float(np.mean(ctl[name]))
+            out.append(Knob(name, value, ls.unit, ls.lo, ls.hi, drv))
+        return out
+
+    def turn(self, steps: int) -> str | None:
+        """Move the selected knob by slider *steps*; returns its name when it changed."""
+        names = self.knob_names()
+        if not names:
+            self.note = "this chain has no live parameters"
+            return None
+        name = names[self.selected % len(names)]
+        drv = self.driven_by(name)
+        if drv:
+            self.note = f"{name} is driven by the control '{drv}'"
+            return None
+        ls = self.spec.live[name]
+        self.wanted[name] = KnobScale(ls.lo, ls.hi).step(self.wanted[name], steps)
+        self.touched.add(name)
+        return name
+
+    def set_knob(self, name: str, value: float) -> None:
+        """Set a knob the user moved (a slider); clamped to its range."""
+        ls = self.spec.live[name]
+        self.wanted[name] = min(max(float(value), ls.lo), ls.hi)
+        self.touched.add(name)
+
+    def reset_knobs(self) -> dict:
+        """Every knob back to the chain file's value; returns the values to build."""
+        self.touched.clear()
+        for name, ls in self.spec.live.items():
+            self.wanted[name] = ls.value
+        return dict(self.wanted)
+
+    def carry(self) -> dict:
+        """The knob values the user has set, to keep over a reload."""
+        return {n: self.wanted[n] for n in self.touched if n in self.wanted}
+
+    def apply(self, act: str) -> dict | None:
+        """Carry out a toggle or knob action; returns the knob values to build, if any."""
+        view = self.view
+        if act == "bypass":
+            self.flow.bypass = not self.flow.bypass
+        elif act in ("split", "zebra", "help"):
+            setattr(view, act, not getattr(view, act))
+        elif act in MONITORS:
+            view.toggle_monitor(act)
+        elif act in ("next_knob", "prev_knob"):
+            n = max(len(self.spec.live), 1)
+            self.selected = (self.selected + (1 if act == "next_knob" else -1)) % n
+        elif act in ("coarse_up", "coarse_down", "fine_up", "fine_down"):
+            steps = COARSE_STEPS if act.startswith("coarse") else FINE_STEPS
+            name = self.turn(steps if act.endswith("up") else -steps)
+            return None if name is None else {name: self.wanted[name]}
+        elif act == "reset":
+            return self.reset_knobs()
+        return None
+
+    def swap_flow(self, flow: FrameFlow) -> None:
+        """Put a reloaded chain's flow in place (bypass and device inputs carried over)."""
+        old, self.flow = self.flow, flow
+        flow.bypass = old.bypass
+        for li in _live_inputs(old):
+            li.stop()
+        for li in _live_inputs(flow):
+            li.start()
+        self.wanted = dict(flow.engine.state.live)
+        self.touched &= set(flow.spec.live)
+        self.error = ""
+
+    # -- one frame ---------------------------------------------------------------------------
+    def status(self, **kw) -> Status:
+        st = Status(title=self.spec.title or self.chain_path.name,
+                    source=f"{self.info.kind} {Path(str(self.info.path)).name}  "
+                           f"{self.info.width}x{self.info.height}  {self.info.fps:.3f} fps",
+                    bypass=self.flow.bypass, knobs=self.knobs(),
+                    selected=self.selected % max(len(self.spec.live), 1),
+                    table_bound_v=self.flow.engine.worst_table_err_v, note=self.note,
+                    error=self.error, fps_target=self.info.fps)
+        for k, v in kw.items():
+            setattr(st, k, v)
+        return st
+
+    def render(self, rgb: np.ndarray, index: int, *, new_frame: bool = True,
+               **status) -> np.ndarray:
+        """Process one decoded frame and draw the composite (BGR, reused buffer)."""
+        self.flow.process(rgb, index)
+        ctl = {} if self.flow.bypass else self.flow.last_controls
+        if new_frame:
+            self.composer.push_controls(ctl)
+        self.canvas = self.composer.compose(rgb, self.flow, view=self.view,
+                                            status=self.status(**status), controls=ctl)
+        return self.canvas
+
+    def state(self) -> dict:
+        """The toggles and knobs, for the ``preview`` state lines."""
+        names = self.knob_names()
+        sel = names[self.selected % len(names)] if names else None
+        return {"bypass": self.flow.bypass, "split": self.view.split,
+                "zebra": self.view.zebra, "help": self.view.help,
+                "monitors": list(self.view.monitors), "knob": sel,
+                "wanted": dict(self.wanted), "live": dict(self.flow.engine.state.live)}
+
+
+def _snapshot_name(stem: str, frame: int) -> Path:
+    base = f"livecurve-{stem}-f{frame:06d}"
+    p = Path(f"{base}.png")
+    k = 2
+    while p.exists():
+        p = Path(f"{base}-{k}.png")
+        k += 1
+    return p
+
+
+def write_composite(path, bgr: np.ndarray, *, force: bool = False) -> Path:
+    """Write a composite (BGR) as an 8-bit PNG, atomically."""
+    from livecurve.media.atomic import write_still
+    return write_still(path, np.ascontiguousarray(bgr[:, :, ::-1]), force=force)
+
+
+# ---- the window -----------------------------------------------------------------------------
+class _Player:
+    """The window's loop: frames on time, finished rebuilds, the chain file, keys."""
+
+    def __init__(self, cv2, session: PreviewSession, src, *, max_frames, out=None):
+        import numba
+        self.cv2, self.session, self.out = cv2, session, out
+        self.numba, self.threads = numba, numba.get_num_threads()
+        self.max_frames = max_frames
+        self.title = f"livecurve preview - {session.chain_path.name}"
+        self.clock = PlayClock(session.info.fps, time.perf_counter())
+        self.pump = FramePump(src, self.clock, loop=True)
+        self.rebuilder = Rebuilder(session.build_flow, session.flow.engine)
+        self.win = SliderWindow(cv2, self.title, session)
+        self.shown = 0
+        self.held = self.pending = None          # (seq, Frame) on screen / next due
+        self.paused = self.ended = self.dirty = self.ready = False
+        self.stamps: deque = deque(maxlen=64)
+        self.watched = _stat(session.chain_path)
+        self.next_watch = time.perf_counter() + WATCH_PERIOD_S
+
+    def say(self, event: str, **kw) -> None:
+        emit(event, self.out, **kw)
+
+    def fps_shown(self) -> float:
+        """Frames shown per second over the last two seconds."""
+        recent = [t for t in self.stamps if t >= self.stamps[-1] - 2.0] if self.stamps else []
+        if len(recent) < 2:
+            return 0.0
+        return (len(recent) - 1) / max(recent[-1] - recent[0], 1e-9)
+
+    def display(self, item, *, new_frame: bool) -> None:
+        seq, fr = item
+        s = self.session
+        idx = fr.index if s.use_clip_index else seq
+        # While tables are rebuilt on the worker, the window thread's numba kernels run on
+        # one thread: both at once on two cores would oversubscribe them (results are the
+        # same with any number of threads).
+        self.numba.set_num_threads(1 if self.rebuilder.busy else self.threads)
+        canvas = s.render(fr.rgb, idx, new_frame=new_frame, frame=fr.index, time_s=fr.time_s,
+                          fps_shown=self.fps_shown(), dropped=self.pump.dropped,
+                          paused=self.paused, ended=self.ended, loop=self.pump.loop,
+                          rebuilding=self.rebuilder.busy)
+        self.win.show(canvas)
+        if new_frame:
+            self.shown += 1
+            self.stamps.append(time.perf_counter())
+        self.dirty = False
+
+    # -- housekeeping between frames ---------------------------------------------------------
+    def take_results(self) -> None:
+        s = self.session
+        while True:
+            try:
+                kind, obj, err = self.rebuilder.results.get_nowait()
+            except queue.Empty:
+                return
+            self.dirty = True
+            if kind == "knobs" and obj is not None:
+                s.flow.engine = obj
+                s.note = ""
+                self.say("knobs", live=dict(obj.state.live))
+            elif kind == "knobs":
+                s.note = f"knob not applied: {err}"[:200]
+                s.wanted = dict(s.flow.engine.state.live)
+                self.win.sync()
+                self.say("knobs", error=err)
+            elif obj is not None:
+                s.swap_flow(obj)
+                self.win.reopen_if_knobs_changed()
+                self.win.sync()
+                self.say("reload", ok=True, title=obj.spec.title, live=dict(s.wanted))
+            else:
+                s.error = err
+                self.say("reload", ok=False, error=err)
+
+    def watch(self, now: float) -> None:
+        if now >= self.next_watch:
+            self.next_watch = now + WATCH_PERIOD_S
+            st = _stat(self.session.chain_path)
+            if st is not None and st != self.watched:
+                self.watched = st
+                self.rebuilder.want_reload(self.session.carry())
+        if self.win.slider_moved:
+            moved = {n: self.session.wanted[n] for n in self.win.slider_moved}
+            self.win.slider_moved.clear()
+            self.rebuilder.want_knobs(moved)
+            self.dirty = True
+            self.say("slider", moved=moved, **self.session.state())
+
+    def advance(self, now: float) -> None:
+        """Show the next frame when it is due; redraw the held one when something changed."""
+        if not (self.paused or self.ended):
+            if self.pending is None:
+                self.pending = self.pump.take(now)
+            if self.pending is not None and self.clock.due(self.pending[0]) <= now + 0.002:
+                self.held, self.pending = self.pending, None
+                self.display(self.held, new_frame=True)
+            elif self.pending is None and self.pump.exhausted:
+                if self.pump.error is not None:
+                    raise self.pump.error
+                self.ended, self.dirty = True, True
+                self.clock.pause(now)
+                self.say("ended", frames_shown=self.shown, **self.session.state())
+        if self.dirty and self.held is not None and (self.paused or self.ended):
+            self.display(self.held, new_frame=False)
+        if not self.ready and self.held is not None:
+            self.ready = True
+            h, w = self.session.canvas.shape[:2]
+            self.say("ready", title=self.title, width=int(w), height=int(h),
+                     **self.session.state())
+
+    def wait_ms(self) -> int:
+        if self.pending is not None and not self.paused:
+            left = (self.clock.due(self.pending[0]) - time.perf_counter()) * 1e3
+            return int(min(max(left, 1), 30))
+        return 20 if (self.paused or self.ended) else 5
+
+    # -- keys ----------------------------------------------------------------------------------
+    def play_on(self, now: float) -> None:
+        if self.ended:
+            self.ended = False
+            self.clock.resume(now, self.pump.next_seq)
+            self.pump.restart()
+        else:
+            self.clock.resume(now, self.held[0] + 1 if self.held else 0)
+        self.paused = False
+
+    def on_key(self, act: str, now: float) -> bool:
+        """Carry out an action; False to quit."""
+        s = self.session
+        if act == "quit":
+            self.say("key", action=act, **s.state())
+            return False
+        self.dirty = True
+        if act == "pause":
+            if self.paused or self.ended:
+                self.play_on(now)
+            else:
+                self.paused = True
+                self.clock.pause(now)
+        elif act == "step":
+            self.paused = True
+            self.clock.pause(now)
+            nxt = self.pending or self.pump.take(now, wait_s=1.0)
+            self.pending = None
+            if nxt is not None:
+                self.held = nxt
+                self.display(nxt, new_frame=True)
+        elif act == "loop":
+            self.pump.loop = not self.pump.loop
+            if self.pump.loop and self.ended:
+                self.play_on(now)
+        elif act == "snapshot":
+            self.snapshot()
+            return True
+        else:
+            values = s.apply(act)
+            if values:
+                self.win.sync()
+                self.rebuilder.want_knobs(values)
+        self.say("key", action=act, paused=self.paused, ended=self.ended,
+                 loop=self.pump.loop, **s.state())
+        return True
+
+    def snapshot(self) -> None:
+        s = self.session
+        frame = self.held[1].index if self.held else 0
+        try:
+            path = write_composite(_snapshot_name(s.chain_path.stem, frame), s.canvas)
+        except LivecurveError as exc:
+            s.note = f"snapshot not written: {exc}"[:200]
+            self.say("snapshot", error=str(exc), **s.state())
+            return
+        s.note = f"wrote {path}"
+        self.say("snapshot", path=str(path.resolve()), frame=frame, **s.state())
+
+    # -- the loop ------------------------------------------------------------------------------
+    def run(self) -> int:
+        try:
+            for li in _live_inputs(self.session.flow):
+                li.start()
+            while True:
+                now = time.perf_counter()
+                self.take_results()
+                self.watch(now)
+                self.advance(now)
+                if self.max_frames is not None and self.shown >= self.max_frames:
+                    break
+                act = action_for(self.cv2.waitKeyEx(self.wait_ms()))  # also lets Qt draw
+                if act is None:
+                    if self.win.closed():
+                        break
+                elif not self.on_key(act, time.perf_counter()):
+                    break
+        except KeyboardInterrupt:
+            pass
+        finally:
+            self.numba.set_num_threads(self.threads)
+            self.pump.close()
+            self.rebuilder.close()
+            for li in _live_inputs(self.session.flow):
+                li.stop()
+            with contextlib.suppress(Exception):
+                self.cv2.destroyAllWindows()
+                self.cv2.waitKey(1)
+        self.say("end", frames_shown=self.shown, dropped=self.pump.dropped,
+                 **self.session.state())
+        return 0
+
+
+def _stat(path: Path):
+    try:
+        st = path.stat()
+    except OSError:
+        return None
+    return (st.st_mtime_ns, st.st_size)
+
+
+# ---- entry point ----------------------------------------------------------------------------
+def write_snapshot(session: PreviewSession, fr, output, *, force: bool = False) -> Path:
+    """Process one decoded frame and write the composite to *output* (PNG)."""
+    for li in _live_inputs(session.flow):
+        li.start()
+    try:
+        canvas = session.render(fr.rgb, fr.index, frame=fr.index, time_s=fr.time_s,
+                                paused=True)
+    finally:
+        for li in _live_inputs(session.flow):
+            li.stop()
+    return write_composite(output, canvas, force=force)
+
+
+def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), exact=False,
+                monitors=None, max_frames=None, force: bool = False) -> int:
+    """Preview a chain on a source: a live window, or one composite written to a PNG.
+
+    Parameters
+    ----------
+    chain_path : str or os.PathLike
+        Chain file (TOML); watched and reloaded on change while the window is open.
+    source : str
+        A clip, a still, an image sequence or ``camera:N``.
+    snapshot : str or os.PathLike, optional
+        Write the composite of the frame at *at_s* to this ``.png`` and return; no
+        window is opened (works without a display).
+    at_s : float, optional
+        Source time to start at (s); default 0.
+    controls : sequence of str
+        ``--control NAME=SOURCE`` options.
+    exact : bool
+        Solver per pixel instead of tables (slow).
+    monitors : sequence of str or str, optional
+        Monitors shown at the start, from ``waveform vectorscope transfer alarms``.
+    max_frames : int, optional
+        Close the window after this many frames were shown.
+    force : bool
+        Let *snapshot* replace an existing file.
+
+    Returns
+    -------
+    int
+        Exit status, 0.
+
+    Raises
+    ------
+    DeviceError
+        No display to open a window on (the message points to ``--snapshot``).
+    ConfigError, MediaError, OutputError
+        Bad chain file, source or output.
+    """
+    from livecurve.media.atomic import check_target
+    from livecurve.media.source import open_source
+    check_monitors(monitors)
+    if max_frames is not None and (isinstance(max_frames, bool) or int(max_frames) < 1):
+        raise LivecurveError(f"--max-frames {max_frames!r}: give a positive number of frames")
+    start = 0.0 if at_s is None else float(at_s)
+    if snapshot is not None:
+        out = check_target(snapshot, force=force)
+        if out.suffix.lower() != ".png":
+            from livecurve.errors import OutputError
+            raise OutputError(f"{out}: a snapshot is written as .png")
+        with open_source(source, start_s=start) as src:
+            session = PreviewSession(chain_path, src.info, controls=controls, exact=exact,
+                                     monitors=monitors)
+            fr = src.read()
+            if fr is None:
+                raise MediaError(f"{src.info.path}: no frame to take a snapshot of")
+            path = write_snapshot(session, fr, out, force=force)
+        emit("snapshot", path=str(Path(path).resolve()), frame=fr.index, time_s=fr.time_s,
+             **session.state())
+        return 0
+    require_display()
+    import cv2
+    set_qt_font_dir()   # before the first window (the wheel's own font folder is missing)
+    with open_source(source, start_s=start, loop=True) as src:
+        session = PreviewSession(chain_path, src.info, controls=controls, exact=exact,
+                                 monitors=monitors)
+        return _Player(cv2, session, src, max_frames=max_frames).run()
