@@ -152,6 +152,8 @@ class FrameFlow:
         self.fps = float(fps)
         #: Control values used for the last frame: name → per-row array (or scalar).
         self.last_controls: dict = {}
+        #: The control sources' times (s) behind ``last_controls``: name → per-row array.
+        self.last_control_times: dict = {}
 
     def live_inputs(self):
         """Control sources that capture from an audio device (the caller starts/stops them)."""
@@ -162,12 +164,26 @@ class FrameFlow:
                     yield part
 
     def control_values(self, frame_index: int) -> dict:
-        """Knob values for every bound control at the times of this frame's rows/pixels."""
+        """Knob values for every bound control at the times of this frame's rows/pixels.
+
+        File, clip and oscillator sources are read at the frame's own times on the video
+        timing.  A live input has its own clock (samples received, not the wall clock — a
+        device need not keep real time): its frame is the newest frame period of audio, the
+        rows spread over it as they are over a frame.  The times used are kept in
+        ``last_control_times``.
+        """
         out = {}
         if not self.controls:
             return out
-        rows = self.timing.row_time_s(frame_index)
+        frame_rows = self.timing.row_time_s(frame_index)
         for cs, cmap in self.controls:
+            rows = frame_rows
+            live = [p for p in getattr(cmap.source, "sources", (cmap.source,))
+                    if getattr(p, "is_live", False)]
+            if live:
+                t_end = min(li.available_until_s() for li in live)
+                rows = frame_rows + ((t_end - 1.0 / self.fps) - frame_rows[0])
+            self.last_control_times[cs.drives] = rows
             if cs.rate == "frame":
                 out[cs.drives] = float(cmap.values_at(np.array([rows[0]]))[0])
             elif cs.rate == "line":

@@ -458,6 +458,7 @@ class PreviewSession:
     def render(self, rgb: np.ndarray, index: int, *, new_frame: bool = True,
                **status) -> np.ndarray:
         """Process one decoded frame and draw the composite (BGR, reused buffer)."""
+        self._check_live_inputs()
         self.flow.process(rgb, index)
         ctl = {} if self.flow.bypass else self.flow.last_controls
         if new_frame:
@@ -465,6 +466,17 @@ class PreviewSession:
         self.canvas = self.composer.compose(rgb, self.flow, view=self.view,
                                             status=self.status(**status), controls=ctl)
         return self.canvas
+
+    def _check_live_inputs(self) -> None:
+        """Report a lost device, overflows or starved reads in the window and on the console
+        (once per change); the knob then holds its last value."""
+        for li in _live_inputs(self.flow):
+            st = li.status
+            text = "" if st.ok else f"audio input {li.name}: {st}"
+            if text and text != getattr(self, "_live_text", ""):
+                print(f"livecurve: {text}", file=sys.stderr, flush=True)
+                self.note = text
+            self._live_text = text
 
     def state(self) -> dict:
         """The toggles and knobs, for the ``preview`` state lines."""
