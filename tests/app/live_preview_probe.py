@@ -22,7 +22,9 @@ from livecurve.media.source import open_source
 
 def main(out: Path, still: str, chain: str) -> None:
     info = probe(still)
-    session = PreviewSession(chain, info, controls=["knee_current=device:lc_f32:seconds=4"])
+    # A 60 s ring: the unpaced file device refills a 4 s ring every few milliseconds here,
+    # which could overwrite a frame's samples between two reads of one frame.
+    session = PreviewSession(chain, info, controls=["knee_current=device:lc_f32:seconds=60"])
     lives = list(session.flow.live_inputs())
     assert len(lives) == 1, lives
     li = lives[0]
