@@ -1,6 +1,7 @@
 """Throughput of line-rate dynamics on 1080p planes; writes benchmarks/dynamics.json.
 
-Run: ``python3 benchmarks/bench_dynamics.py [--repeat N] [--threads N]``.
+Run: ``python3 benchmarks/bench_dynamics.py [--repeat N] [--threads N [N ...]]`` (default:
+one thread and all threads; both are recorded).
 
 Times ``apply_line_filter`` on one 1920×1080 float32 plane and on a 3-plane frame
 (three calls, one per channel) at the 1080p30 pixel clock (74.25 MHz, SMPTE

@@ -108,7 +108,6 @@ class FrameEngine:
         if live:
             self.state.live.update(live)
         self.runs: list[list[Run]] = [self._plan(ch) for ch in range(3)]
-        self._scratch = None
         self.rebuild()
 
     # ---- planning and building ----------------------------------------------------------
@@ -247,8 +246,6 @@ class FrameEngine:
         if out is None:
             out = np.empty_like(planes)
         controls = controls or {}
-        if self._scratch is None or self._scratch.shape != planes.shape[1:]:
-            self._scratch = np.empty(planes.shape[1:], dtype=np.float32)
         for ch in range(3):
             runs = self.runs[ch]
             if not runs:
@@ -263,9 +260,7 @@ class FrameEngine:
                     _tables.apply_table(src, run.table, control=ctl, out=out[ch])
                 if run.line_filter is not None:
                     from livecurve.engine.linefilters import apply_line_filter
-                    np.copyto(self._scratch, out[ch])
-                    apply_line_filter(self._scratch, run.line_filter,
-                                      blank_level_v=run.blank_out_v,
+                    apply_line_filter(out[ch], run.line_filter, blank_level_v=run.blank_out_v,
                                       lead_in_samples=self.lead_in_samples, out=out[ch])
                 src = out[ch]
         return out
