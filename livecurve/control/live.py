@@ -298,6 +298,11 @@ class LiveInput(ControlSource):
         self._started = False
         self._stopping = False
         self._lost = False
+        # compile (or load) the ring reader now, not on the first frame after the stream
+        # starts: a device keeps delivering while a kernel compiles
+        _ring_read(self._ring, 0, 1, self.sample_rate_hz,
+                   -1 if self.channel == "mix" else self.channel, self._scale,
+                   np.zeros(1), np.zeros(1))
         self.name = f"device:{self.device_name}"
 
     # ------------------------------------------------------------ PortAudio thread
