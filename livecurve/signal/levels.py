@@ -217,7 +217,7 @@ def _volts_to_codes(planes, gain, bias, lo, hi, igain, ibias, minv, out_max, tie
     Floor(code + 0.5 + tie_eps) is BT.2100 Round with exact halves pushed up);
     n = igain·code + ibias is Y′ 0…1 and Pb, Pr ±0.5 (or R′G′B′ 0…1).  Then R′G′B′ = minv @ n,
     clipped to 0…1, word = ⌊x·out_max + 0.5 + tie_eps⌋.
-    A pixel holding NaN is encoded at the lowest codes (the caller raises).
+    A pixel holding NaN is counted; its codes are undefined (the caller raises).
     """
     h, w = planes.shape[1], planes.shape[2]
     g0, g1, g2 = gain[0], gain[1], gain[2]
@@ -239,11 +239,12 @@ def _volts_to_codes(planes, gain, bias, lo, hi, igain, ibias, minv, out_max, tie
             v0 = np.float64(p0[x])
             v1 = np.float64(p1[x])
             v2 = np.float64(p2[x])
-            ok = (v0 == v0) & (v1 == v1) & (v2 == v2)  # no NaN (selects, not branches)
-            nrow += np.int64(not ok)
-            c0 = min(max(g0 * v0 + b0 if ok else l0, l0), h0)
-            c1 = min(max(g1 * v1 + b1 if ok else l1, l1), h1)
-            c2 = min(max(g2 * v2 + b2 if ok else l2, l2), h2)
+            # NaN is counted (the caller raises) and otherwise left to fall where it may:
+            # no select in the arithmetic keeps the loop lean
+            nrow += np.int64((v0 != v0) | (v1 != v1) | (v2 != v2))
+            c0 = min(max(g0 * v0 + b0, l0), h0)
+            c1 = min(max(g1 * v1 + b1, l1), h1)
+            c2 = min(max(g2 * v2 + b2, l2), h2)
             n0 = np.floor(c0 + half) * i0 + j0
             n1 = np.floor(c1 + half) * i1 + j1
             n2 = np.floor(c2 + half) * i2 + j2
