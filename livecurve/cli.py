@@ -121,7 +121,7 @@ def cmd_preview(args) -> int:
     return int(run_preview(args.chain, args.source, snapshot=args.snapshot, at_s=args.at,
                            controls=args.control or (), exact=args.exact,
                            monitors=args.monitors, max_frames=args.max_frames,
-                           force=args.force) or 0)
+                           force=args.force, drift=args.drift, speedup=args.speedup) or 0)
 
 
 def cmd_drift(args) -> int:
@@ -217,6 +217,10 @@ def build_parser() -> argparse.ArgumentParser:
                                       "(waveform, vectorscope, transfer, alarms)")
     c.add_argument("--max-frames", type=int, default=None, help="stop after this many frames")
     c.add_argument("--force", action="store_true", help="overwrite the --snapshot file")
+    c.add_argument("--drift", action="store_true",
+                   help="junction temperatures follow the chain's [thermal] warm-up")
+    c.add_argument("--speedup", type=float, default=None,
+                   help="thermal time runs this many times faster than the clip (with --drift)")
     c.set_defaults(func=cmd_preview)
 
     c = sub.add_parser("devices", help="list audio inputs for --control device:...")

@@ -315,11 +315,15 @@ class PreviewSession:
     """
 
     def __init__(self, chain_path, info, *, controls=(), exact: bool = False, monitors=None,
-                 scope_step: int | None = None):
+                 scope_step: int | None = None, drift: bool = False,
+                 speedup: float | None = None):
         self.chain_path = Path(chain_path)
         self.info = info
         self.control_items = list(controls or ())
         self.exact = bool(exact)
+        self.drift, self.speedup = bool(drift), speedup
+        self._flash = None  # flash estimate while controls modulate the picture
+        self._flash_verdict = "ok"
         self.view = ViewState(monitors=check_monitors(monitors))
         self.composer = Composer(scope_step=scope_step)
         self.flow = self.build_flow({})
@@ -348,7 +352,12 @@ class PreviewSession:
         bound = bind_controls(spec, self.control_items, clip_path=clip)
         flow = FrameFlow(spec, width=self.info.width, height=self.info.height,
                          fps=self.info.fps, clip_matrix=self.info.colour_matrix,
-                         controls=bound, exact=self.exact, out_dtype=np.uint8)
+                         controls=bound, exact=self.exact, out_dtype=np.uint8,
+                         drift=self.drift, speedup=self.speedup)
+        self._flash = None
+        if bound:
+            from livecurve.monitors.flash import FlashMeter
+            self._flash = FlashMeter(self.info.fps, space=spec.space, standard=flow.standard)
         keep = {n: v for n, v in carry.items()
                 if n in spec.live and spec.live[n].lo <= v <= spec.live[n].hi
                 and n not in flow.engine.modulated}
@@ -460,12 +469,26 @@ class PreviewSession:
         """Process one decoded frame and draw the composite (BGR, reused buffer)."""
         self._check_live_inputs()
         self.flow.process(rgb, index)
+        if new_frame and self._flash is not None and not self.flow.bypass:
+            self._check_flash()
         ctl = {} if self.flow.bypass else self.flow.last_controls
         if new_frame:
             self.composer.push_controls(ctl)
         self.canvas = self.composer.compose(rgb, self.flow, view=self.view,
                                             status=self.status(**status), controls=ctl)
         return self.canvas
+
+    def _check_flash(self) -> None:
+        """Photosensitive-flash estimate (ITU-R BT.1702) on the modulated output: warn in the
+        window and on the console when it rises above ok."""
+        fr = self._flash.push(self.flow.planes_out)
+        verdict = fr.level
+        if verdict != self._flash_verdict and verdict != "ok":
+            text = (f"FLASH {verdict.upper()}: the modulation makes the picture flash (ITU-R "
+                    "BT.1702 estimate) — risk for people with photosensitive epilepsy")
+            print(f"livecurve: {text}", file=sys.stderr, flush=True)
+            self.note = text
+        self._flash_verdict = verdict
 
     def _check_live_inputs(self) -> None:
         """Report a lost device, overflows or starved reads in the window and on the console
@@ -738,7 +761,8 @@ def write_snapshot(session: PreviewSession, fr, output, *, force: bool = False) 
 
 
 def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), exact=False,
-                monitors=None, max_frames=None, force: bool = False) -> int:
+                monitors=None, max_frames=None, force: bool = False, drift: bool = False,
+                speedup: float | None = None) -> int:
     """Preview a chain on a source: a live window, or one composite written to a PNG.
 
     Parameters
@@ -788,7 +812,7 @@ def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), ex
             raise OutputError(f"{out}: a snapshot is written as .png")
         with open_source(source, start_s=start) as src:
             session = PreviewSession(chain_path, src.info, controls=controls, exact=exact,
-                                     monitors=monitors)
+                                     monitors=monitors, drift=drift, speedup=speedup)
             fr = src.read()
             if fr is None:
                 raise MediaError(f"{src.info.path}: no frame to take a snapshot of")
@@ -801,5 +825,5 @@ def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), ex
     set_qt_font_dir()   # before the first window (the wheel's own font folder is missing)
     with open_source(source, start_s=start, loop=True) as src:
         session = PreviewSession(chain_path, src.info, controls=controls, exact=exact,
-                                 monitors=monitors)
+                                 monitors=monitors, drift=drift, speedup=speedup)
         return _Player(cv2, session, src, max_frames=max_frames).run()

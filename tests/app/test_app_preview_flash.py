@@ -1,0 +1,68 @@
+"""Flash warnings in the preview, and thermal drift in the frame flow.
+
+Flash criterion: more than 3 flashes in any one second is a hazard (ITU-R BT.1702; from
+memory, see REFERENCES.md).  Warm-up: T(t) = T0 + (T1 − T0)(1 − exp(−t/τ)) (first-order
+thermal model, livecurve.app.thermal) and the ≈ −2 mV/K junction drift at fixed current
+(common practice; Sedra & Smith) that an uncompensated log stage shows.
+"""
+
+from __future__ import annotations
+
+import tomllib
+
+import cv2
+import numpy as np
+
+from livecurve.app.frameflow import FrameFlow
+from livecurve.app.preview import PreviewSession
+from livecurve.config.chainfile import parse_chain
+from livecurve.media.probe import probe
+from tests.app.test_app_live_control import ROOT
+
+
+def _session(tmp_path, control):
+    still = tmp_path / "grey.png"
+    cv2.imwrite(str(still), np.full((90, 160, 3), 128, np.uint8))
+    return PreviewSession(ROOT / "configs" / "night_knee.toml", probe(str(still)),
+                          controls=[control]), np.full((90, 160, 3), 128, np.uint8)
+
+
+def test_fast_modulation_is_flagged(tmp_path, capsys):
+    s, rgb = _session(tmp_path, "knee_current=lfo:square:10Hz:1V")
+    for k in range(45):  # 1.5 s at 30 fps
+        s.render(rgb, k)
+    assert "FLASH HAZARD" in s.note
+    assert "epilepsy" in capsys.readouterr().err
+
+
+def test_slow_modulation_is_not_flagged(tmp_path, capsys):
+    s, rgb = _session(tmp_path, "knee_current=lfo:sine:0.2Hz:0.3V")
+    for k in range(45):
+        s.render(rgb, k)
+    assert "FLASH" not in s.note
+    assert "FLASH" not in capsys.readouterr().err
+
+
+def test_drift_follows_the_warm_up(tmp_path):
+    raw = tomllib.loads((ROOT / "configs" / "night_knee.toml").read_text())
+    raw.pop("control")
+    raw["ambient"] = "20C"
+    raw["thermal"] = {"warmup_to": "45C", "tau": "2s"}
+    spec = parse_chain(raw, path=str(tmp_path / "warm.toml"))
+    rgb = np.full((36, 64, 3), 128, np.uint8)
+    flow = FrameFlow(spec, width=64, height=36, fps=30, drift=True)
+    cold = flow.process(rgb, 0).copy()
+    y_cold = float(flow.planes_out[0].mean())
+    t_cold = flow.engine.state.t_kelvin
+    warm = flow.process(rgb, 300).copy()  # 10 s = 5 τ: within 1 % of 45 °C
+    y_warm = float(flow.planes_out[0].mean())
+    t_warm = flow.engine.state.t_kelvin
+    assert abs(t_cold - 293.15) < 0.3
+    assert abs(t_warm - (293.15 + 25 * (1 - np.exp(-5)))) < 0.3
+    # the restore stage multiplies the log stage's ≈ −2 mV/K by its gain of 20: the picture
+    # darkens by roughly 25 K × 2 mV/K × 20 ≈ 1 V (bounded loosely: 0.5 … 1.5 V, or clipped)
+    assert y_warm < y_cold - 0.3
+    assert not np.array_equal(cold, warm)
+    # without drift the same frames are identical
+    still = FrameFlow(spec, width=64, height=36, fps=30)
+    assert np.array_equal(still.process(rgb, 0), still.process(rgb, 300))
