@@ -109,7 +109,7 @@ class Netlist:
 
     def opamp(self, name: str, plus: str, minus: str, out: str, *, a_ol: float,
               v_pos_v: float, v_neg_v: float, headroom_v: float) -> Element:
-        """Op-amp with open-loop gain *a_ol* whose output swings between the rails less *headroom_v*."""
+        """Op-amp with open-loop gain *a_ol*; output swings between the rails less *headroom_v*."""
         hi, lo = v_pos_v - headroom_v, v_neg_v + headroom_v
         if not hi > lo:
             raise ConfigError("rails less headroom leave no output swing",

@@ -30,8 +30,8 @@ All kinds share the chain's op-amp (open-loop gain, rails, headroom).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 from livecurve.circuit.devices import BjtModel, DiodeModel
 from livecurve.circuit.netlist import Netlist

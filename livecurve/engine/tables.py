@@ -12,8 +12,8 @@ domain is chosen wider than any legal signal).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 import numba as nb
 import numpy as np

@@ -60,7 +60,7 @@ def test_preview_trace_follows_live_device(tmp_path):
         values, times = z["values"], z["times"]
     ls = load_chain(chain).live["knee_current"]
     mid, half = 0.5 * (ls.lo + ls.hi), 0.5 * (ls.hi - ls.lo)
-    for v, t in zip(values, times):
+    for v, t in zip(values, times, strict=True):
         idx = t * RATE
         assert idx.min() >= 0 and idx.max() < samples.size  # read inside the file
         expected = mid + half * np.interp(idx, np.arange(samples.size), samples)
