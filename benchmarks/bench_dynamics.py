@@ -25,7 +25,6 @@ import os
 import platform
 import statistics
 import sys
-import tempfile
 import time
 from pathlib import Path
 
@@ -35,6 +34,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from livecurve.engine.dynamics import StageDynamics, apply_line_filter, discretise  # noqa: E402
+from livecurve.media.atomic import atomic_output  # noqa: E402
 
 PIXEL_PERIOD_S = 1.0 / 74.25e6
 H, W = 1080, 1920
@@ -151,15 +151,8 @@ def main(argv=None) -> int:
         **body,
     }
     args.out.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=".dynamics-", suffix=".json.tmp", dir=args.out.parent)
-    try:
-        with os.fdopen(fd, "w") as f:
-            json.dump(report, f, indent=2)
-            f.write("\n")
-        os.replace(tmp, args.out)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_output(args.out, force=True) as tmp:  # written whole or not at all
+        tmp.write_text(json.dumps(report, indent=2) + "\n")
     print(json.dumps(report, indent=2))
     return 0
 

@@ -17,7 +17,6 @@ import json
 import os
 import platform
 import sys
-import tempfile
 import time
 from pathlib import Path
 
@@ -26,6 +25,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
+from livecurve.media.atomic import atomic_output  # noqa: E402
 from livecurve.monitors import draw  # noqa: E402
 from livecurve.monitors import planes as planes_mod  # noqa: E402
 from livecurve.monitors.alarms import level_alarms, zebra_mask  # noqa: E402
@@ -163,15 +163,8 @@ def main(argv=None) -> int:
         "results": res,
     }
     out = Path(args.out)
-    fd, tmp = tempfile.mkstemp(prefix=out.name + ".", suffix=".tmp", dir=out.parent)
-    try:
-        with os.fdopen(fd, "w") as f:
-            json.dump(doc, f, indent=2)
-            f.write("\n")
-        os.replace(tmp, out)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_output(out, force=True) as tmp:  # written whole or not at all
+        tmp.write_text(json.dumps(doc, indent=2) + "\n")
     for k, v in res.items():
         print(f"{k:30s} best {v['best_ms']:7.2f} ms  median {v['median_ms']:7.2f} ms  "
               f"one-thread CPU {v['one_thread_cpu_best_ms']:7.2f} ms")

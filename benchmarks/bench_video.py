@@ -47,6 +47,7 @@ from livecurve.app.demo import DEMO_CHAINS, chain_path, demo_clip  # noqa: E402
 from livecurve.app.frameflow import FrameFlow, bind_controls  # noqa: E402
 from livecurve.config.chainfile import load_chain  # noqa: E402
 from livecurve.engine.pipeline import FrameEngine  # noqa: E402
+from livecurve.media.atomic import atomic_output  # noqa: E402
 from livecurve.media.source import open_source  # noqa: E402
 from livecurve.signal.levels import codes_to_volts, volts_to_codes  # noqa: E402
 from livecurve.signal.timing import ClipTiming, get_format  # noqa: E402
@@ -219,15 +220,8 @@ def main(argv=None) -> int:
         "render_720p_h264": render_res,
     }
     out = Path(args.out)
-    fd, tmp = tempfile.mkstemp(prefix=out.name + ".", suffix=".tmp", dir=out.parent)
-    try:
-        with os.fdopen(fd, "w") as f:
-            json.dump(doc, f, indent=2)
-            f.write("\n")
-        os.replace(tmp, out)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    with atomic_output(out, force=True) as tmp:  # written whole or not at all
+        tmp.write_text(json.dumps(doc, indent=2) + "\n")
     print(json.dumps(doc, indent=2))
     print(f"wrote {out}")
     return 0
