@@ -210,54 +210,12 @@ def _ramp_bgr(k: int, n: int) -> tuple[int, int, int]:
     return tuple(int(v) for v in c)
 
 
-def _ticks(lo: float, hi: float, n: int = 5) -> np.ndarray:
-    span = hi - lo
-    raw = span / n
-    mag = 10 ** math.floor(math.log10(raw))
-    step = next(m * mag for m in (1, 2, 2.5, 5, 10) if m * mag >= raw)
-    return np.arange(math.ceil(lo / step) * step, hi + 1e-12 * span, step)
-
-
 def family_panel(x: np.ndarray, ys, colours, *, title: str, xlabel: str, ylabel: str,
                  size=(480, 300)) -> np.ndarray:
     """Curves *ys* against *x*, each in its own BGR colour, on a grid; BGR uint8 image."""
-    import cv2
-
-    from livecurve.app.plot import BG_BGR, GRID_BGR, TEXT_BGR
-    w, h = size
-    img = np.full((h, w, 3), BG_BGR, dtype=np.uint8)
-    left, right, top, bottom = 64, 12, 30, 42
-    pw, ph = w - left - right, h - top - bottom
-    ys = [np.asarray(y, dtype=np.float64) for y in ys]
-    x0, x1 = float(x.min()), float(x.max())
-    y0, y1 = float(min(y.min() for y in ys)), float(max(y.max() for y in ys))
-    if y1 - y0 < 1e-9:
-        y0, y1 = y0 - 0.5, y1 + 0.5
-    y0, y1 = y0 - 0.05 * (y1 - y0), y1 + 0.05 * (y1 - y0)
-
-    def px(xv, yv):
-        return (left + (np.asarray(xv) - x0) / (x1 - x0) * pw,
-                top + (1 - (np.asarray(yv) - y0) / (y1 - y0)) * ph)
-
-    font = cv2.FONT_HERSHEY_SIMPLEX
-    for t in _ticks(x0, x1):
-        u, _ = px(t, y0)
-        cv2.line(img, (int(u), top), (int(u), top + ph), GRID_BGR, 1)
-        cv2.putText(img, f"{t:g}", (int(u) - 14, h - bottom + 16), font, 0.38, TEXT_BGR, 1,
-                    cv2.LINE_AA)
-    for t in _ticks(y0, y1):
-        _, v = px(x0, t)
-        cv2.line(img, (left, int(v)), (left + pw, int(v)), GRID_BGR, 1)
-        cv2.putText(img, f"{t:.4g}", (4, int(v) + 4), font, 0.38, TEXT_BGR, 1, cv2.LINE_AA)
-    cv2.rectangle(img, (left, top), (left + pw, top + ph), (110, 104, 98), 1)
-    for y, col in zip(ys, colours, strict=True):
-        u, v = px(x, y)
-        pts = np.stack([u, v], axis=1).round().astype(np.int32)
-        cv2.polylines(img, [pts], False, col, 1, cv2.LINE_AA)
-    cv2.putText(img, title, (left, 18), font, 0.45, TEXT_BGR, 1, cv2.LINE_AA)
-    cv2.putText(img, f"{xlabel}   [{ylabel}]", (left + pw // 2 - 60, h - 8), font, 0.4,
-                TEXT_BGR, 1, cv2.LINE_AA)
-    return img
+    from livecurve.app.plot import line_plot
+    return line_plot(np.asarray(x), ys, colours=list(colours), thickness=1, title=title,
+                     xlabel=f"{xlabel}   [{ylabel}]", size=size)
 
 
 def drift_figure(vin: np.ndarray, out: np.ndarray, temps_k, spec: ChainSpec, *,

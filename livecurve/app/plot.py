@@ -24,11 +24,16 @@ def _nice_ticks(lo: float, hi: float, n: int = 6) -> np.ndarray:
 
 
 def line_plot(x: np.ndarray, ys, *, labels=(), title: str = "", xlabel: str = "",
-              ylabel: str = "", size=(960, 600), xlim=None, ylim=None) -> np.ndarray:
-    """Draw series *ys* (list of arrays like *x*) against *x*; returns a BGR uint8 image."""
+              ylabel: str = "", size=(960, 600), xlim=None, ylim=None, colours=None,
+              thickness: int = 2) -> np.ndarray:
+    """Draw series *ys* (list of arrays like *x*) against *x*; returns a BGR uint8 image.
+
+    *colours* (BGR per series) defaults to the channel trace colours."""
     w, h = size
     img = np.full((h, w, 3), BG_BGR, dtype=np.uint8)
-    left, right, top, bottom = 80, 20, 40, 50
+    small = w < 640
+    left, right, top, bottom = (64, 12, 30, 42) if small else (80, 20, 40, 50)
+    colours = colours or [TRACE_BGR[i % len(TRACE_BGR)] for i in range(len(ys))]
     pw, ph = w - left - right, h - top - bottom
     x = np.asarray(x, dtype=np.float64)
     ys = [np.asarray(y, dtype=np.float64) for y in ys]
@@ -60,10 +65,10 @@ def line_plot(x: np.ndarray, ys, *, labels=(), title: str = "", xlabel: str = ""
         ok = np.isfinite(y)
         u, v = px(x[ok], np.clip(y[ok], y0 - 10 * (y1 - y0), y1 + 10 * (y1 - y0)))
         pts = np.stack([u, v], axis=1).round().astype(np.int32)
-        cv2.polylines(img[:, :], [pts], False, TRACE_BGR[i % len(TRACE_BGR)], 2, cv2.LINE_AA)
+        cv2.polylines(img, [pts], False, colours[i], thickness, cv2.LINE_AA)
         if i < len(labels):
             cv2.putText(img, labels[i], (left + 10 + 150 * i, top - 10), font, 0.5,
-                        TRACE_BGR[i % len(TRACE_BGR)], 1, cv2.LINE_AA)
+                        colours[i], 1, cv2.LINE_AA)
     cv2.putText(img, title, (left, 18), font, 0.55, TEXT_BGR, 1, cv2.LINE_AA)
     cv2.putText(img, xlabel, (left + pw // 2 - 40, h - 12), font, 0.45, TEXT_BGR, 1, cv2.LINE_AA)
     cv2.putText(img, ylabel, (5, top - 22), font, 0.45, TEXT_BGR, 1, cv2.LINE_AA)
