@@ -75,7 +75,7 @@ def run_demo(out_dir, *, force: bool = False, quick: bool = False, say=print) ->
     say("Open the live preview with, for example:")
     say(f"  livecurve preview {clip} --chain {chain_path('night_knee')}")
     say(f"  livecurve preview {clip} --chain {chain_path('night_knee')} "
-        "--control beat=clip")
+        "--control knee_current=lfo:sine:0.5Hz:0.8V")
     say("Without a display, write the same picture and monitors to a file with --snapshot OUT.png.")
     return written
 
