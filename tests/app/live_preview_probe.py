@@ -31,13 +31,18 @@ def main(out: Path, still: str, chain: str) -> None:
     with open_source(still) as src:
         rgb = next(iter(src)).rgb
     session.render(rgb, 0)  # warm every kernel first: the file device outruns real time
+    t_start = time.perf_counter()
     li.start()
+    print(f"stream start took {1e3 * (time.perf_counter() - t_start):.1f} ms", flush=True)
     end = time.monotonic() + 20
     while li.samples_received < 48000 and time.monotonic() < end:
         time.sleep(0.0005)
     values, times = [], []
     for k in range(4):
+        t0 = time.perf_counter()
         session.render(rgb, k)
+        print(f"frame {k}: {1e3 * (time.perf_counter() - t0):.1f} ms, device at "
+              f"{li.samples_received} samples", flush=True)
         values.append(np.asarray(session.flow.last_controls["knee_current"], dtype=np.float64))
         times.append(np.asarray(session.flow.last_control_times["knee_current"]))
     status = str(li.status)
