@@ -15,15 +15,15 @@ from __future__ import annotations
 import argparse
 import json
 import os
-import platform
 import sys
 import time
 from pathlib import Path
 
-import numba
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from _machine import runtime_info  # noqa: E402  (benchmarks/ is on sys.path)
 
 from livecurve.media.atomic import atomic_output  # noqa: E402
 from livecurve.monitors import draw  # noqa: E402
@@ -153,11 +153,7 @@ def main(argv=None) -> int:
                 "(best and median of repeats) and best CPU time of the one-thread kernels",
         "frame": "synthetic demo picture, ypbpr BT.709, planar float32 (3, 1080, 1920)",
         "repeat": r,
-        "numba_threads": numba.get_num_threads(),
-        "threading_layer": numba.threading_layer(),
-        "cpu_count": os.cpu_count(),
-        "python": platform.python_version(),
-        "numba": numba.__version__,
+        **runtime_info(),
         "load_average_before": [round(v, 2) for v in load_before],
         "load_average_after": [round(v, 2) for v in load_after],
         "results": res,

@@ -31,7 +31,6 @@ import argparse
 import dataclasses
 import json
 import os
-import platform
 import sys
 import tempfile
 import time
@@ -42,6 +41,8 @@ import numba
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from _machine import runtime_info  # noqa: E402  (benchmarks/ is on sys.path)
 
 from livecurve.app.demo import DEMO_CHAINS, chain_path, demo_clip  # noqa: E402
 from livecurve.app.frameflow import FrameFlow, bind_controls  # noqa: E402
@@ -208,11 +209,7 @@ def main(argv=None) -> int:
                 "runs",
         "frame": "demo clip frame 60 scaled to 1920x1080 (bicubic), 8-bit R'G'B', BT.709",
         "repeat": args.repeat,
-        "numba_threads": numba.get_num_threads(),
-        "threading_layer": numba.threading_layer(),
-        "cpu_count": os.cpu_count(),
-        "python": platform.python_version(),
-        "numba": numba.__version__,
+        **runtime_info(),
         "load_average_before": [round(v, 2) for v in load_before],
         "load_average_after_frames": [round(v, 2) for v in load_mid],
         "load_average_after": [round(v, 2) for v in load_after],
