@@ -10,8 +10,14 @@ from __future__ import annotations
 
 import os
 import shutil
+import subprocess
+import sys
+from pathlib import Path
 
 import pytest
+
+#: The checkout under test; CLI subprocesses import livecurve from here.
+ROOT = Path(__file__).resolve().parents[1]
 
 IN_CI = os.environ.get("CI", "").lower() not in ("", "0", "false", "no")
 
@@ -30,6 +36,19 @@ def require_exe(name: str) -> str:
     path = shutil.which(name)
     require(path is not None, f"executable '{name}'")
     return path
+
+
+def run_cli(*args, cwd=None, timeout: float = 600, env: dict | None = None, **kw):
+    """Run ``python -m livecurve.cli ARGS`` in a subprocess of this checkout.
+
+    Returns the CompletedProcess (text mode, stdout/stderr captured).  ``PYTHONPATH`` points
+    at the checkout so the code under test is the code that runs, whatever is installed.
+    """
+    e = dict(os.environ if env is None else env)
+    e["PYTHONPATH"] = str(ROOT) + (os.pathsep + e["PYTHONPATH"] if e.get("PYTHONPATH") else "")
+    return subprocess.run([sys.executable, "-m", "livecurve.cli", *map(str, args)],
+                          capture_output=True, text=True, cwd=cwd or ROOT, timeout=timeout,
+                          env=e, **kw)
 
 
 @pytest.fixture

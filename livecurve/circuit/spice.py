@@ -8,20 +8,105 @@ engine composes them.  Op-amps are behavioural sources
 
 Tolerances follow REFERENCES.md: ngspice's default RELTOL leaves ~0.2 mV on log-amp
 outputs, so decks carry ``.options RELTOL=1e-7 VNTOL=1e-10 ABSTOL=1e-16``.
+
+A deck is a program: ngspice runs ``.control`` blocks (and their ``shell`` command) from
+any line, and treats a comment line that starts ``*#`` as a control line.  Text from a
+chain file therefore never starts a line of its own here:
+
+- comment text (title, path, knob names) is folded to one line of printable ASCII, and
+  every comment line starts ``"* "``;
+- element, node and model names must be letters, digits and ``_`` (refused otherwise);
+- numbers are written by this module from floats and must be finite;
+- the finished deck is checked line by line against the small grammar this module
+  writes (:func:`check_deck`) before it is returned, so a slip in any writer is caught
+  here rather than in the user's ngspice.
 """
 
 from __future__ import annotations
+
+import math
+import re
 
 import numpy as np
 
 from livecurve.circuit.devices import T_NOM_K, BjtModel, DiodeModel
 from livecurve.circuit.netlist import GROUND, Netlist
+from livecurve.errors import SolverError
+
+_NAME = re.compile(r"^[A-Za-z0-9_]+$")
+_PATH = re.compile(r"^[A-Za-z0-9_./+\-]+$")
+# Lines this module writes, and nothing else (see check_deck).
+_COMMENT = re.compile(r"^\* [ -~]*$")
+_ELEMENT = re.compile(r"^[RIVEDQB][A-Za-z0-9_]+( [A-Za-z0-9_.+\-*/()=]+)+$")
+_DOT = re.compile(r"^\.(options|temp|dc|print dc|model [A-Za-z0-9_]+ (D|NPN|PNP)\()"
+                  r"[ A-Za-z0-9_.+\-=()]*$")
+_CONTROL = re.compile(r"^(set wr_singlescale|set wr_vecnames|run|quit|"
+                      r"wrdata [A-Za-z0-9_./+\-]+( v\([A-Za-z0-9_]+\))+)$")
 
 OPTIONS = ".options RELTOL=1e-7 VNTOL=1e-10 ABSTOL=1e-16 ITL1=500 ITL2=500"
 
 
 def _g(x: float) -> str:
+    x = float(x)
+    if not math.isfinite(x):
+        raise SolverError(f"cannot write {x} into a SPICE deck (values must be finite)")
     return f"{x:.12g}"
+
+
+def comment(text) -> str:
+    """A SPICE comment line carrying *text*, which can never start a line of its own.
+
+    Line breaks, tabs and every character outside printable ASCII become ``?``; the line
+    starts with ``"* "`` (ngspice reads ``*#`` lines as control lines).
+    """
+    return "* " + "".join(c if " " <= c <= "~" else "?" for c in str(text))
+
+
+def spice_name(name: str, what: str) -> str:
+    """*name* if it is a safe SPICE token (letters, digits, ``_``), else SolverError."""
+    name = str(name)
+    if not _NAME.match(name):
+        raise SolverError(f"{what} {name!r} cannot go into a SPICE deck: names take letters, "
+                          "digits and _ only")
+    return name
+
+
+def check_deck(text: str) -> str:
+    """Return *text* if every line is one this module writes, else raise SolverError.
+
+    The grammar: comment lines (``* `` then printable ASCII), element lines (R I V E D Q B,
+    a name, then tokens of names, numbers and the behavioural op-amp expression),
+    ``.options``/``.temp``/``.dc``/``.print dc``/``.model`` cards, ``.end``, and one fixed
+    ``.control`` block (``set``, ``run``, ``wrdata`` to a plain path, ``quit``).
+    """
+    in_control = False
+    for no, line in enumerate(text.split("\n"), 1):
+        if not line:
+            continue
+        if in_control:
+            if line == ".endc":
+                in_control = False
+                continue
+            ok = bool(_CONTROL.match(line))
+        elif line == ".control":
+            in_control, ok = True, True
+        else:
+            ok = line == ".end" or bool(_COMMENT.match(line) or _ELEMENT.match(line)
+                                        or _DOT.match(line))
+        if not ok:
+            raise SolverError(f"refusing to write a SPICE deck: line {no} is not one livecurve "
+                              f"writes: {line[:80]!r}")
+    if in_control:
+        raise SolverError("refusing to write a SPICE deck: unterminated .control block")
+    return text
+
+
+def _data_path(path: str) -> str:
+    path = str(path)
+    if not _PATH.match(path):
+        raise SolverError(f"the wrdata path {path!r} cannot go into a SPICE deck: use letters, "
+                          "digits and _ . / + - only")
+    return path
 
 
 def netlist_cards(net: Netlist, prefix: str, t_kelvin: float | None = None,
@@ -30,15 +115,17 @@ def netlist_cards(net: Netlist, prefix: str, t_kelvin: float | None = None,
 
     *t_kelvin*, when given, sets each junction's instance temperature (``temp=`` in °C).
     """
+    spice_name(prefix, "prefix")
+
     def nd(n: str) -> str:
-        return ground if n in GROUND else f"{prefix}_{n}"
+        return ground if n in GROUND else f"{prefix}_{spice_name(n, 'node')}"
 
     tcard = "" if t_kelvin is None else f" temp={_g(t_kelvin - 273.15)}"
     cards, models = [], []
     for el in net.elements:
-        name = f"{prefix}_{el.name}"
         if el.kind == "VIN":
             continue
+        name = f"{prefix}_{spice_name(el.name, 'element')}"
         if el.kind == "R":
             cards.append(f"R{name} {nd(el.nodes[0])} {nd(el.nodes[1])} {_g(el.value)}")
         elif el.kind == "I":
@@ -96,16 +183,16 @@ def chain_deck(model, *, t_kelvin: float | None = None, live: dict | None = None
     t = spec.ambient_k if t_kelvin is None else t_kelvin
     lo, hi = spec.sweep_v if sweep_v is None else sweep_v
     step = (hi - lo) / (points - 1)
-    lines = [f"* livecurve chain '{spec.title}' from {spec.path}",
-             f"* temperature {t - 273.15:.3f} C; knob values: "
-             f"{live if live is not None else model.live_defaults()}",
+    knobs = live if live is not None else model.live_defaults()
+    lines = [comment(f"livecurve chain '{spec.title}' from {spec.path}"),
+             comment(f"temperature {t - 273.15:.3f} C; knob values: {knobs}"),
              "VIN vin 0 DC 0"]
     for ch in range(3):
         prev = "vin"
         for k, st in enumerate(model.stages_for(ch)):
             pre = f"c{ch}s{k}"
             net = model.netlist(ch, st, live)
-            lines.append(f"* channel {ch}, stage {k}: {st.id} ({st.kind})")
+            lines.append(comment(f"channel {ch}, stage {k}: {st.id} ({st.kind})"))
             lines.append(f"EBUF_{pre} {pre}_in 0 {prev} 0 1")
             tk = temps_k.get(st.id) if temps_k else None
             lines += netlist_cards(net, pre, tk)
@@ -115,25 +202,25 @@ def chain_deck(model, *, t_kelvin: float | None = None, live: dict | None = None
               f".dc VIN {_g(lo)} {_g(hi + 0.5 * step)} {_g(step)}"]
     if data_file:
         lines += [".control", "set wr_singlescale", "set wr_vecnames", "run",
-                  f"wrdata {data_file} v(out0) v(out1) v(out2)", "quit", ".endc"]
+                  f"wrdata {_data_path(data_file)} v(out0) v(out1) v(out2)", "quit", ".endc"]
     else:
         # ngspice -b runs no analysis in a deck without an output request
         lines.append(".print dc v(out0) v(out1) v(out2)")
     lines.append(".end")
-    return "\n".join(lines) + "\n"
+    return check_deck("\n".join(lines) + "\n")
 
 
 def stage_deck(net: Netlist, vin_v: np.ndarray, *, t_kelvin: float, data_file: str) -> str:
     """A deck sweeping one stage netlist over *vin_v* (uniform), for reference checks."""
     lo, hi = float(vin_v[0]), float(vin_v[-1])
     step = (hi - lo) / (len(vin_v) - 1)
-    lines = [f"* livecurve stage {net.name}", "VIN s_in 0 DC 0"]
+    lines = [comment(f"livecurve stage {net.name}"), "VIN s_in 0 DC 0"]
     lines += netlist_cards(net, "s")
     lines += [OPTIONS, f".options TNOM={_g(T_NOM_K - 273.15)}", f".temp {_g(t_kelvin - 273.15)}",
               f".dc VIN {_g(lo)} {_g(hi + 0.5 * step)} {_g(step)}", ".control",
-              "set wr_singlescale", "set wr_vecnames", "run", f"wrdata {data_file} v(s_out)",
-              "quit", ".endc", ".end"]
-    return "\n".join(lines) + "\n"
+              "set wr_singlescale", "set wr_vecnames", "run",
+              f"wrdata {_data_path(data_file)} v(s_out)", "quit", ".endc", ".end"]
+    return check_deck("\n".join(lines) + "\n")
 
 
 def read_wrdata(path: str) -> np.ndarray:

@@ -17,12 +17,15 @@ ground.  Models are declared in the stage's ``models`` table.
 
 from __future__ import annotations
 
+import re
+
 from livecurve.circuit.devices import BjtModel, DiodeModel
 from livecurve.circuit.netlist import Netlist
 from livecurve.circuit.stages import OpampSpec
 from livecurve.errors import ConfigError
 from livecurve.units import parse_value
 
+_TOKEN = re.compile(r"^[A-Za-z0-9_]+$")
 _ARITY = {"R": 3, "I": 3, "V": 3, "D": 3, "Q": 4, "E": 5, "U": 3}
 _UNIT = {"R": "ohm", "I": "A", "V": "V", "E": ""}
 
@@ -58,6 +61,10 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
             raise ConfigError(f"'{letter}' takes {_ARITY[letter]} fields after the name",
                               path=path, key=k, value=raw)
         f = card[1:]
+        for tok in card[:-1] if letter in _UNIT else card:
+            if not _TOKEN.match(tok):
+                raise ConfigError(f"'{tok}': element, node and model names take letters, "
+                                  "digits and _ only", path=path, key=k, value=raw)
         if ename.upper() == "VIN":
             raise ConfigError("VIN is the input source and is added for you", path=path, key=k,
                               value=raw)
