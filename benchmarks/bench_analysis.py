@@ -32,11 +32,11 @@ CHAINS = ("film_shoulder", "shadow_crush", "night_knee")
 
 
 def bench_chain(name: str, trials: int) -> dict:
-    from livecurve.app.lut import write_clf
-    from livecurve.app.spread import list_parts, monte_carlo
-    from livecurve.app.thermal import TableFollower, ThermalModel
+    from livecurve.analysis.spread import list_parts, monte_carlo
+    from livecurve.circuit.thermal import TableFollower, ThermalModel
     from livecurve.config.chainfile import load_chain
     from livecurve.engine.pipeline import FrameEngine
+    from livecurve.outputs.clf import write_clf
 
     spec = load_chain(ROOT / "configs" / f"{name}.toml")
     out: dict = {"chain": name, "space": spec.space}

@@ -3,13 +3,13 @@
 For each demo chain at 720p and 1080p, with every monitor on:
 
 * ``render``: frames per second of the per-frame work of the preview window
-  (:meth:`livecurve.app.preview.PreviewSession.render`: codes → volts → chain → codes,
+  (:meth:`livecurve.preview.window.PreviewSession.render`: codes → volts → chain → codes,
   waveform, vectorscope, transfer view, level alarms, status panel, layout) on decoded
   frames held in memory; no window, no encoder.  The cost of each part in ms per frame
   (medians) comes from the composite's own timers (``sampling`` is the copy of every
   2nd line and sample the scopes read above 720p); ``chain_ms`` is the chain alone.
 * ``loop``: frames per second of the same work fed by the preview's background decoder
-  (:class:`~livecurve.app.preview.FramePump`, unpaced) from a clip: decoding competes for
+  (:class:`~livecurve.preview.window.FramePump`, unpaced) from a clip: decoding competes for
   the two cores, as in the window.
 
 The 720p frames are the demo clip's; the 1080p ones are the demo clip scaled by the
@@ -62,8 +62,8 @@ def _clip_at(size: str, tmp: Path) -> Path:
 
 
 def bench_render(chain: str, clip: Path, frames: int) -> dict:
-    from livecurve.app.preview import PreviewSession
     from livecurve.media.source import open_source
+    from livecurve.preview.window import PreviewSession
     with open_source(clip) as src:
         session = PreviewSession(ROOT / "configs" / f"{chain}.toml", src.info)
         pics = [next(src) for _ in range(min(frames, 24))]
@@ -96,8 +96,8 @@ def bench_render(chain: str, clip: Path, frames: int) -> dict:
 
 
 def bench_loop(chain: str, clip: Path, frames: int) -> dict:
-    from livecurve.app.preview import FramePump, PlayClock, PreviewSession
     from livecurve.media.source import open_source
+    from livecurve.preview.window import FramePump, PlayClock, PreviewSession
     with open_source(clip, loop=True) as src:
         session = PreviewSession(ROOT / "configs" / f"{chain}.toml", src.info)
         pump = FramePump(src, PlayClock(src.info.fps, 0.0, paced=False))

@@ -18,7 +18,7 @@ Per 1920×1080 frame, in one run, numba with 2 threads:
 * the whole ``FrameFlow.process`` (codes in, codes out) for each chain.
 
 Render: the 1280×720 demo clip (6 s, 180 frames) through each demo chain to H.264 with
-``app.render.render`` (end to end: decode, chain, encode, audio copy), and the ceiling of
+``outputs.render.render`` (end to end: decode, chain, encode, audio copy), and the ceiling of
 decode → encode with no processing (the same source and ClipWriter settings).
 
 The 1080p picture is frame 60 of the demo clip scaled up with OpenCV (bicubic), so the
@@ -44,12 +44,12 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from _machine import runtime_info  # noqa: E402  (benchmarks/ is on sys.path)
 
-from livecurve.app.demo import DEMO_CHAINS, chain_path, demo_clip  # noqa: E402
-from livecurve.app.frameflow import FrameFlow, bind_controls  # noqa: E402
 from livecurve.config.chainfile import load_chain  # noqa: E402
+from livecurve.engine.frameflow import FrameFlow, bind_controls  # noqa: E402
 from livecurve.engine.pipeline import FrameEngine  # noqa: E402
 from livecurve.media.atomic import atomic_output  # noqa: E402
 from livecurve.media.source import open_source  # noqa: E402
+from livecurve.outputs.demo import DEMO_CHAINS, chain_path, demo_clip  # noqa: E402
 from livecurve.signal.levels import codes_to_volts, volts_to_codes  # noqa: E402
 from livecurve.signal.timing import ClipTiming, get_format  # noqa: E402
 
@@ -145,8 +145,8 @@ def frame_figures(repeat: int) -> dict:
 
 
 def render_figures(tmp: Path) -> dict:
-    from livecurve.app.render import render
     from livecurve.media.encode import ClipWriter
+    from livecurve.outputs.render import render
     clip = str(demo_clip())
     res: dict = {}
     # decode → encode ceiling: the same decoder and encoder settings, no processing

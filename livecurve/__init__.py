@@ -2,9 +2,9 @@
 
 Data path (one frame): decode (``media``) → component volts (``signal``) →
 chain of circuit stages (``circuit`` builds tables, ``engine`` applies them per
-pixel and per line) → back to code values (``signal``) → window or encoder
-(``app``, ``media``), with monitors (``monitors``) and control sources
-(``control``) on the side.
+pixel and per line) → back to code values (``signal``) → the live window
+(``preview``) or files (``outputs``, ``media``), with monitors (``monitors``), control
+sources (``control``) and design analysis (``analysis``) on the side.
 """
 
 from livecurve.errors import LivecurveError

@@ -39,7 +39,7 @@ def _live(spec, args):
 
 
 def cmd_check(args) -> int:
-    from livecurve.app.report import chain_summary
+    from livecurve.analysis.summary import chain_summary
     from livecurve.engine.pipeline import FrameEngine
     spec = _chain(args.chain)
     eng = FrameEngine(spec)
@@ -48,10 +48,10 @@ def cmd_check(args) -> int:
 
 
 def cmd_curve(args) -> int:
-    from livecurve.app import curves
+    from livecurve.outputs import curves
     spec = _chain(args.chain)
     if args.step:
-        from livecurve.app.steps import write_steps
+        from livecurve.outputs.steps import write_steps
         write_steps(spec, csv=args.csv, png=args.png, force=True)
         return 0
     if not (args.csv or args.png):
@@ -72,19 +72,19 @@ def cmd_export(args) -> int:
     if not (args.spice or args.clf):
         raise LivecurveError("export: give --spice OUT.cir and/or --clf OUT.clf")
     if args.spice:
-        from livecurve.app.curves import write_spice
+        from livecurve.outputs.curves import write_spice
         write_spice(args.spice, spec, t_kelvin=_temp(args), live=_live(spec, args),
                     points=args.points, force=True)
         print(f"wrote {args.spice}")
     if args.clf:
-        from livecurve.app.lut import write_clf
+        from livecurve.outputs.clf import write_clf
         write_clf(args.clf, spec, t_kelvin=_temp(args), live=_live(spec, args), force=True)
         print(f"wrote {args.clf}")
     return 0
 
 
 def cmd_render(args) -> int:
-    from livecurve.app.render import render
+    from livecurve.outputs.render import render
     spec = _chain(args.chain)
     rep = render(spec, args.source, args.output, start_s=args.start, duration_s=args.duration,
                  codec=args.codec, side_by_side=args.side_by_side, force=args.force,
@@ -99,7 +99,7 @@ def cmd_render(args) -> int:
 
 
 def cmd_demo(args) -> int:
-    from livecurve.app.demo import run_demo
+    from livecurve.outputs.demo import run_demo
     run_demo(args.out, force=args.force, quick=args.quick)
     return 0
 
@@ -117,7 +117,7 @@ def cmd_devices(args) -> int:
 
 
 def cmd_preview(args) -> int:
-    from livecurve.app.preview import run_preview
+    from livecurve.preview.window import run_preview
     return int(run_preview(args.chain, args.source, snapshot=args.snapshot, at_s=args.at,
                            controls=args.control or (), exact=args.exact,
                            monitors=args.monitors, max_frames=args.max_frames,
@@ -127,7 +127,7 @@ def cmd_preview(args) -> int:
 def cmd_drift(args) -> int:
     from pathlib import Path
 
-    from livecurve.app.drift import run_drift
+    from livecurve.analysis.drift import run_drift
     from livecurve.units import parse_temperature_k
     spec = _chain(args.chain)
     out = Path(args.out)
@@ -143,7 +143,7 @@ def cmd_drift(args) -> int:
 def cmd_spread(args) -> int:
     from pathlib import Path
 
-    from livecurve.app.spread import run_spread
+    from livecurve.analysis.spread import run_spread
     spec = _chain(args.chain)
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)

@@ -22,9 +22,9 @@ import time
 import numpy as np
 import pytest
 
-from livecurve.app.demo import chain_path
 from livecurve.media import _ffmpeg
 from livecurve.media.probe import probe
+from livecurve.outputs.demo import chain_path
 from tests.conftest import require_exe
 
 TIMEOUT_S = 300

@@ -15,15 +15,15 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from livecurve.app.demo import DEMO_CHAINS, chain_path, demo_clip
-from livecurve.app.frameflow import FrameFlow
 from livecurve.circuit.chain import ChainModel
 from livecurve.config.chainfile import load_chain
+from livecurve.engine.frameflow import FrameFlow
 from livecurve.engine.linefilters import apply_line_filter
 from livecurve.engine.pipeline import FrameEngine
 from livecurve.engine.tables import apply_table
 from livecurve.errors import ConfigError
 from livecurve.media.source import open_source
+from livecurve.outputs.demo import DEMO_CHAINS, chain_path, demo_clip
 from livecurve.signal.component import centre_offsets_v
 
 #: float32 slack on volts near ±0.5 V: table values are stored in float32 (half an ulp of

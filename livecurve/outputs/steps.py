@@ -45,7 +45,7 @@ def write_steps(spec: ChainSpec, *, csv=None, png=None, force: bool = True) -> N
             tmp.write_text(buf.getvalue())
         print(f"wrote {csv}")
     if png:
-        from livecurve.app.plot import line_plot, write_png
+        from livecurve.outputs.plots import line_plot, write_png
         names = channel_names(spec.space)
         img = line_plot(t * 1e9, list(y), labels=[f"{i}: {n}" for i, n in enumerate(names)],
                         title=f"{spec.title}: step response along a line",

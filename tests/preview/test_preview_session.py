@@ -13,8 +13,16 @@ import cv2
 import numpy as np
 import pytest
 
-from livecurve.app.keys import Rebuilder, engine_with
-from livecurve.app.overlay import (
+from livecurve.circuit.chain import ChainModel
+from livecurve.config.chainfile import load_chain
+from livecurve.engine.pipeline import FrameEngine
+from livecurve.errors import ConfigError, LivecurveError, MediaError, OutputError
+from livecurve.media.probe import probe
+from livecurve.media.source import Frame
+from livecurve.monitors.alarms import MASK_CLIPPED, MASK_OUTSIDE_LEGAL, zebra_mask
+from livecurve.monitors.draw import ZEBRA
+from livecurve.preview.keys import Rebuilder, engine_with
+from livecurve.preview.overlay import (
     CANVAS_H,
     CANVAS_W,
     GAP,
@@ -25,7 +33,7 @@ from livecurve.app.overlay import (
     check_monitors,
     dc_curves,
 )
-from livecurve.app.preview import (
+from livecurve.preview.window import (
     FramePump,
     PlayClock,
     PreviewSession,
@@ -33,16 +41,8 @@ from livecurve.app.preview import (
     run_preview,
     set_qt_font_dir,
 )
-from livecurve.circuit.chain import ChainModel
-from livecurve.config.chainfile import load_chain
-from livecurve.engine.pipeline import FrameEngine
-from livecurve.errors import ConfigError, LivecurveError, MediaError, OutputError
-from livecurve.media.probe import probe
-from livecurve.media.source import Frame
-from livecurve.monitors.alarms import MASK_CLIPPED, MASK_OUTSIDE_LEGAL, zebra_mask
-from livecurve.monitors.draw import ZEBRA
 from livecurve.signal.levels import converter_is_exact, converter_limits_v
-from tests.app.test_app_preview_support import (
+from tests.preview.test_preview_support import (
     BARS,
     REPO,
     bar_centres_in_canvas,

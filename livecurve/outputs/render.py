@@ -16,8 +16,8 @@ from pathlib import Path
 
 import numpy as np
 
-from livecurve.app.frameflow import FrameFlow, bind_controls
 from livecurve.config.chainfile import ChainSpec
+from livecurve.engine.frameflow import FrameFlow, bind_controls
 from livecurve.errors import OutputError
 
 STILL_EXT = (".png", ".tif", ".tiff")
@@ -87,7 +87,7 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
     side_by_side : bool
         Output the source on the left and the processed picture on the right.
     controls : list of str
-        ``--control`` options (see :func:`livecurve.app.frameflow.bind_controls`).
+        ``--control`` options (see :func:`livecurve.engine.frameflow.bind_controls`).
     drift : bool
         Let junction temperatures follow the chain's ``[thermal]`` warm-up and self-heating
         over the clip's time (tables rebuilt as they move).

@@ -18,14 +18,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from livecurve.app.demo import chain_path, demo_clip
-from livecurve.app.frameflow import FrameFlow, bind_controls
-from livecurve.app.render import render
 from livecurve.circuit.chain import ChainModel
 from livecurve.config.chainfile import load_chain
+from livecurve.engine.frameflow import FrameFlow, bind_controls
 from livecurve.errors import ConfigError
 from livecurve.media import _ffmpeg
 from livecurve.media.source import open_source
+from livecurve.outputs.demo import chain_path, demo_clip
+from livecurve.outputs.render import render
 
 #: SMPTE ST 274, 1080p30.
 PIXEL_CLOCK_HZ = 74.25e6

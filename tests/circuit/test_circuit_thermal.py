@@ -19,7 +19,7 @@ import math
 import numpy as np
 import pytest
 
-from livecurve.app.thermal import TableFollower, ThermalModel, warmup_ambient_k
+from livecurve.circuit.thermal import TableFollower, ThermalModel, warmup_ambient_k
 from livecurve.config.chainfile import parse_chain
 from livecurve.engine.pipeline import FrameEngine
 from livecurve.errors import ConfigError, SolverError

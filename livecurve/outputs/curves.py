@@ -44,7 +44,7 @@ def write_curve_csv(path, vin: np.ndarray, vout: np.ndarray, *, force: bool = Tr
 def write_curve_png(path, vin, vout, spec: ChainSpec, *, title: str = "",
                     force: bool = True) -> None:
     """Plot of the three channel curves, output volts against input volts."""
-    from livecurve.app.plot import line_plot, write_png
+    from livecurve.outputs.plots import line_plot, write_png
     names = channel_names(spec.space)
     img = line_plot(vin, list(vout), labels=[f"{i}: {n}" for i, n in enumerate(names)],
                     title=title or f"{spec.title}: DC transfer", xlabel="input (V)",

@@ -20,9 +20,9 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-from livecurve.app.lut import apply_lut3d, clf_text, static_rgb, write_clf
 from livecurve.config.chainfile import load_chain
 from livecurve.errors import ConfigError, OutputError
+from livecurve.outputs.clf import apply_lut3d, clf_text, static_rgb, write_clf
 from livecurve.signal.component import ypbpr_to_rgb_matrix
 from tests.conftest import require
 
@@ -128,9 +128,9 @@ def test_clf_applied_to_a_still_gives_the_render(tmp_path):
     half a 16-bit output code.
     """
     ocio = _ocio()
-    from livecurve.app.render import render
     from livecurve.media.atomic import write_still
     from livecurve.media.probe import read_image
+    from livecurve.outputs.render import render
     rng = np.random.default_rng(4)
     rows = rng.integers(0, 65536, (160, 3)).astype(np.uint16)
     rows[:40] = np.repeat(np.linspace(0, 65535, 40).round()[:, None], 3, axis=1)

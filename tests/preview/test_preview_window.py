@@ -22,9 +22,10 @@ import cv2
 import numpy as np
 import pytest
 
-from livecurve.app.keys import COARSE_STEPS, KnobScale
-from livecurve.app.overlay import CANVAS_H, CANVAS_W, PIC_H, PIC_W, TILE_H, TILE_W
-from tests.app.test_app_preview_support import (
+from livecurve.preview.keys import COARSE_STEPS, KnobScale
+from livecurve.preview.overlay import CANVAS_H, CANVAS_W, PIC_H, PIC_W, TILE_H, TILE_W
+from tests.conftest import require, require_exe
+from tests.preview.test_preview_support import (
     REPO,
     bar_centres_in_canvas,
     make_clip,
@@ -32,7 +33,6 @@ from tests.app.test_app_preview_support import (
     write_bars,
     write_chain,
 )
-from tests.conftest import require, require_exe
 
 SCREEN = (1000, 1600)  # height, width of the virtual screen
 TIMEOUT_S = 90.0       # generous: the machine may be busy; never a pass/fail criterion
@@ -344,6 +344,6 @@ def test_offscreen_platform_is_refused_without_abort(xdisplay, tmp_path):
 
 
 def test_display_check_accepts_the_virtual_display(xdisplay):
-    from livecurve.app.preview import display_problem
+    from livecurve.preview.window import display_problem
     assert display_problem(xdisplay) is None
     assert grab_screen(xdisplay["DISPLAY"]).shape == SCREEN + (3,)

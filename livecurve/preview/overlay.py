@@ -423,7 +423,7 @@ class Composer:
             for i, ln in enumerate(lines):
                 _text(canvas, ln, x0 + 8, y0 + nh - bh + 18 * (i + 1), scale=0.45)
         if view.help:
-            from livecurve.app.keys import BINDINGS
+            from livecurve.preview.keys import BINDINGS
             bh, bw = 24 + 17 * len(BINDINGS), min(nw - 20, 640)
             by, bx = y0 + 10, x0 + 10
             box = canvas[by:by + bh, bx:bx + bw]

@@ -20,7 +20,7 @@ import cv2
 import numpy as np
 import pytest
 
-from livecurve.app.drift import (
+from livecurve.analysis.drift import (
     CSV_HEADER,
     drift_curves,
     reference_frame,
@@ -124,7 +124,7 @@ def test_strip_of_a_resistor_chain_does_not_drift():
 
 
 def test_strip_at_ambient_equals_the_frame_path():
-    from livecurve.app.frameflow import FrameFlow
+    from livecurve.engine.frameflow import FrameFlow
     spec = load_chain(ROOT / "configs" / "shadow_crush.toml")
     frame = reference_frame(160, 90)
     got = strip_frames(spec, [spec.ambient_k], frame=frame)[0]

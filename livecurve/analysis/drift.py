@@ -5,7 +5,7 @@ The physics is the junction laws of :mod:`livecurve.circuit.devices` (SPICE leve
 and Gummel–Poon IS(T), VT = kT/q): at constant current a junction's voltage falls by
 ≈ 2 mV/K (Sedra & Smith; common practice) and a transdiode log stage's volts per decade
 grow ∝ T (TI/National AN-30).  Every stage of the chain sits at the same junction
-temperature here (self-heating is left to :mod:`livecurve.app.thermal`), which is what
+temperature here (self-heating is left to :mod:`livecurve.circuit.thermal`), which is what
 an ngspice ``.temp`` sweep of the exported deck computes; the tests compare the two.
 
 Outputs
@@ -15,7 +15,7 @@ Outputs
   temperature (bottom, mV), one trace per temperature coloured from cold (blue) to hot (red).
 * Strip PNG: a reference frame — a grey step wedge, a continuous grey ramp and 75 % colour
   bars made in code, or a given still — through the whole frame path
-  (:class:`livecurve.app.frameflow.FrameFlow`, dynamics included) at each temperature,
+  (:class:`livecurve.engine.frameflow.FrameFlow`, dynamics included) at each temperature,
   tiled with labels.
 """
 
@@ -27,10 +27,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from livecurve.app.lut import check_live
 from livecurve.circuit.chain import ChainModel
 from livecurve.config.chainfile import ChainSpec
 from livecurve.errors import ConfigError
+from livecurve.outputs.clf import check_live
 from livecurve.signal.component import channel_names
 
 CSV_HEADER = "temp_c,input_v,out0_v,out1_v,out2_v"
@@ -149,7 +149,7 @@ def strip_frames(spec: ChainSpec, temps_k, *, frame: np.ndarray | None = None,
     list of ndarray (H, W, 3) uint8
         R′G′B′ codes, one picture per temperature.
     """
-    from livecurve.app.frameflow import FrameFlow
+    from livecurve.engine.frameflow import FrameFlow
     img = reference_frame() if frame is None else np.ascontiguousarray(frame)
     if img.ndim != 3 or img.shape[2] != 3 or img.dtype not in (np.uint8, np.uint16):
         raise ConfigError("a frame must be (H, W, 3) uint8 or uint16 codes", key="frame",
@@ -186,7 +186,7 @@ def tile_strip(frames: list, temps_k, *, columns: int = 4) -> np.ndarray:
     """Tile pictures (RGB uint8) in a grid with a temperature label under each; BGR uint8."""
     import cv2
 
-    from livecurve.app.plot import BG_BGR, TEXT_BGR
+    from livecurve.outputs.plots import BG_BGR, TEXT_BGR
     h, w = frames[0].shape[:2]
     cols = min(columns, len(frames))
     rows = math.ceil(len(frames) / cols)
@@ -213,7 +213,7 @@ def _ramp_bgr(k: int, n: int) -> tuple[int, int, int]:
 def family_panel(x: np.ndarray, ys, colours, *, title: str, xlabel: str, ylabel: str,
                  size=(480, 300)) -> np.ndarray:
     """Curves *ys* against *x*, each in its own BGR colour, on a grid; BGR uint8 image."""
-    from livecurve.app.plot import line_plot
+    from livecurve.outputs.plots import line_plot
     return line_plot(np.asarray(x), ys, colours=list(colours), thickness=1, title=title,
                      xlabel=f"{xlabel}   [{ylabel}]", size=size)
 
@@ -224,7 +224,7 @@ def drift_figure(vin: np.ndarray, out: np.ndarray, temps_k, spec: ChainSpec, *,
     channel, with a colour key of the temperatures; BGR uint8."""
     import cv2
 
-    from livecurve.app.plot import BG_BGR, TEXT_BGR
+    from livecurve.outputs.plots import BG_BGR, TEXT_BGR
     temps = np.asarray(temps_k)
     n = len(temps)
     cols = [_ramp_bgr(k, n) for k in range(n)]
@@ -315,8 +315,8 @@ def run_drift(spec: ChainSpec, *, from_k: float, to_k: float, steps: int = 6, cs
     DriftReport
         ``lines()`` gives the text the command line prints.
     """
-    from livecurve.app.plot import write_png
     from livecurve.media.atomic import atomic_output, check_target
+    from livecurve.outputs.plots import write_png
     temps = temperature_steps(from_k, to_k, steps)
     for p in (csv, png, strip_png):
         if p is not None:

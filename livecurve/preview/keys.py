@@ -188,7 +188,7 @@ class SliderWindow:
         OpenCV, imported by the caller once a display is known to exist.
     title : str
         Window name (also its title).
-    session : livecurve.app.preview.PreviewSession
+    session : livecurve.preview.window.PreviewSession
         Whose knobs the sliders show and set.
 
     Attributes

@@ -1,4 +1,4 @@
-"""One frame's whole path (livecurve.app.frameflow) and render() (livecurve.app.render).
+"""One frame's whole path (livecurve.engine.frameflow) and render() (livecurve.outputs.render).
 
 References (see /work/shared/REFERENCES.md):
 * Inverting amplifier: closed-loop gain −(Rf/Rin)/(1 + (1 + Rf/Rin)/A_OL) (any op-amp text;
@@ -23,15 +23,15 @@ import cv2
 import numpy as np
 import pytest
 
-from livecurve.app.demo import chain_path, demo_clip
-from livecurve.app.frameflow import FrameFlow
-from livecurve.app.render import render
 from livecurve.config.chainfile import load_chain
+from livecurve.engine.frameflow import FrameFlow
 from livecurve.engine.pipeline import FrameEngine
 from livecurve.errors import LivecurveError, MediaError, OutputError
 from livecurve.media import _ffmpeg
 from livecurve.media.probe import probe, read_image
 from livecurve.media.source import open_source
+from livecurve.outputs.demo import chain_path, demo_clip
+from livecurve.outputs.render import render
 
 with warnings.catch_warnings():
     warnings.simplefilter("ignore")  # colour-science warns that matplotlib is absent

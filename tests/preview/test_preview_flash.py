@@ -2,7 +2,7 @@
 
 Flash criterion: more than 3 flashes in any one second is a hazard (ITU-R BT.1702; from
 memory, see REFERENCES.md).  Warm-up: T(t) = T0 + (T1 − T0)(1 − exp(−t/τ)) (first-order
-thermal model, livecurve.app.thermal) and the ≈ −2 mV/K junction drift at fixed current
+thermal model, livecurve.circuit.thermal) and the ≈ −2 mV/K junction drift at fixed current
 (common practice; Sedra & Smith) that an uncompensated log stage shows.
 """
 
@@ -13,11 +13,11 @@ import tomllib
 import cv2
 import numpy as np
 
-from livecurve.app.frameflow import FrameFlow
-from livecurve.app.preview import PreviewSession
 from livecurve.config.chainfile import parse_chain
+from livecurve.engine.frameflow import FrameFlow
 from livecurve.media.probe import probe
-from tests.app.test_app_live_control import ROOT
+from livecurve.preview.window import PreviewSession
+from tests.preview.test_preview_live_control import ROOT
 
 
 def _session(tmp_path, control):

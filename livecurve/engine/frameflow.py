@@ -147,7 +147,7 @@ class FrameFlow:
         #: self-heating; tables are rebuilt when they move by more than a threshold.
         self.follower = None
         if drift:
-            from livecurve.app.thermal import TableFollower, ThermalModel
+            from livecurve.circuit.thermal import TableFollower, ThermalModel
             self.follower = TableFollower(ThermalModel(spec), speedup=speedup)
         self.fps = float(fps)
         #: Control values used for the last frame: name → per-row array (or scalar).

@@ -56,7 +56,7 @@ def test_preview_trace_follows_live_device(tmp_path):
     for attempt in range(3):
         out = tmp_path / f"out{attempt}"
         out.mkdir()
-        run = subprocess.run([sys.executable, "-m", "tests.app.live_preview_probe", str(out),
+        run = subprocess.run([sys.executable, "-m", "tests.preview.live_preview_probe", str(out),
                               str(still), str(chain)], cwd=ROOT, env=env, capture_output=True,
                              text=True, timeout=300)
         assert run.returncode == 0, f"probe failed:\n{run.stdout}\n{run.stderr[-3000:]}"

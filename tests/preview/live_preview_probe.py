@@ -1,6 +1,6 @@
-"""Child process for test_app_live_control: the preview's data path fed by a live ALSA device.
+"""Child process for test_preview_live_control: the preview's data path fed by a live ALSA device.
 
-Usage: ``python -m tests.app.live_preview_probe OUTDIR STILL CHAIN`` with ALSA_CONFIG_PATH
+Usage: ``python -m tests.preview.live_preview_probe OUTDIR STILL CHAIN`` with ALSA_CONFIG_PATH
 naming a configuration that defines the capture device ``lc_f32`` (mono FLOAT_LE, backed
 by a raw file).  It opens a PreviewSession on STILL with ``--control knee_current=device:lc_f32``,
 starts the live input as the preview does, renders a few frames and saves, per frame, the
@@ -15,9 +15,9 @@ from pathlib import Path
 
 import numpy as np
 
-from livecurve.app.preview import PreviewSession
 from livecurve.media.probe import probe
 from livecurve.media.source import open_source
+from livecurve.preview.window import PreviewSession
 
 
 def main(out: Path, still: str, chain: str) -> None:

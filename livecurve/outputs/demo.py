@@ -37,9 +37,9 @@ def chain_path(name: str) -> Path:
 
 def run_demo(out_dir, *, force: bool = False, quick: bool = False, say=print) -> list[Path]:
     """Render the demo; returns the files written."""
-    from livecurve.app import curves
-    from livecurve.app.render import render
     from livecurve.config.chainfile import load_chain
+    from livecurve.outputs import curves
+    from livecurve.outputs.render import render
     out = Path(out_dir)
     if out.exists() and any(out.iterdir()) and not force:
         raise OutputError(f"{out}: folder exists and is not empty; use --force to write into "
@@ -82,7 +82,7 @@ def run_demo(out_dir, *, force: bool = False, quick: bool = False, say=print) ->
 
 def _before_after(spec, clip: Path, path: Path, *, at_s: float = 2.0) -> None:
     """A 16-bit PNG: the frame at *at_s* before (left) and after (right) the chain."""
-    from livecurve.app.frameflow import FrameFlow, bind_controls
+    from livecurve.engine.frameflow import FrameFlow, bind_controls
     from livecurve.media.atomic import write_still
     from livecurve.media.source import open_source
     with open_source(str(clip), start_s=at_s, duration_s=1.0) as src:

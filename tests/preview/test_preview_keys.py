@@ -8,7 +8,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from livecurve.app.keys import (
+from livecurve.errors import ConfigError
+from livecurve.preview.keys import (
     BINDINGS,
     COARSE_STEPS,
     FINE_STEPS,
@@ -18,7 +19,6 @@ from livecurve.app.keys import (
     action_for,
     help_lines,
 )
-from livecurve.errors import ConfigError
 
 REL = 1e-12  # float64 round-off of the slider mapping
 

@@ -22,7 +22,7 @@ Distributions (chosen here; a chain-level override can replace :class:`Tolerance
 Colour cast on grey
 -------------------
 A grey ramp (R′ = G′ = B′ from 0 to 1) goes through the static path of
-:func:`livecurve.app.lut.static_rgb` (codes → volts → chain → converter clipping, no
+:func:`livecurve.outputs.clf.static_rgb` (codes → volts → chain → converter clipping, no
 quantisation → R′G′B′ 0…1).  Each result is shown on a reference display: BT.1886 EOTF
 with black 0 and white 1 (R′^2.4; ITU-R BT.1886), BT.709 primaries and D65 white
 (ITU-R BT.709, whatever the chain's matrix: a simplification), then CIE XYZ → CIELAB
@@ -48,10 +48,10 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from livecurve.app.lut import check_live, check_temperature, rgb01_to_volts, volts_to_rgb01
 from livecurve.circuit.chain import ChainModel
 from livecurve.config.chainfile import ChainSpec
 from livecurve.errors import ConfigError
+from livecurve.outputs.clf import check_live, check_temperature, rgb01_to_volts, volts_to_rgb01
 from livecurve.signal.component import channel_names
 
 DISTRIBUTIONS = ("gauss", "uniform")
@@ -497,7 +497,7 @@ def spread_png(res: SpreadResult, spec: ChainSpec, *, top: int = 12) -> np.ndarr
     """Three band panels (deviation from nominal, mV) and a ranking bar chart; BGR uint8."""
     import cv2
 
-    from livecurve.app.plot import BG_BGR, TEXT_BGR, TRACE_BGR, line_plot
+    from livecurve.outputs.plots import BG_BGR, TEXT_BGR, TRACE_BGR, line_plot
     st = res.channel_stats()
     names = channel_names(spec.space)
     panels = []
@@ -583,8 +583,8 @@ def run_spread(spec: ChainSpec, *, trials: int, seed: int | None = None, csv=Non
     SpreadReport
         ``lines()`` gives the text the command line prints.
     """
-    from livecurve.app.plot import write_png
     from livecurve.media.atomic import atomic_output, check_target
+    from livecurve.outputs.plots import write_png
     for p in (csv, json, png):
         if p is not None:
             check_target(p, force=force)

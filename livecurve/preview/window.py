@@ -1,14 +1,14 @@
 """Live preview window and headless snapshots of a chain working on a clip, still or camera.
 
 The window (OpenCV ``imshow``/``waitKeyEx``) shows the composite of
-:mod:`livecurve.app.overlay`: the processed picture, the monitors and a status panel.
+:mod:`livecurve.preview.overlay`: the processed picture, the monitors and a status panel.
 It keeps real time by *dropping* frames, never by slowing down: a background thread
 decodes into a buffer of two frames, each frame is due at ``seq / fps`` seconds on a
 wall clock (``seq`` counts decoded frames, across loops), and a frame whose time has
 passed by more than one frame period is dropped whenever a newer one is at hand.
 The status panel shows the achieved rate and the number of dropped frames.
 
-Live parameters are turned by key (:mod:`livecurve.app.keys`) or by slider; their tables
+Live parameters are turned by key (:mod:`livecurve.preview.keys`) or by slider; their tables
 are rebuilt on a worker thread on a copy of the engine (``FrameEngine.set_live``) and
 swapped in when ready, the newest request winning, so the picture keeps running (the
 window thread's numba kernels drop to one thread meanwhile, leaving the other core to the
@@ -47,8 +47,10 @@ from pathlib import Path
 
 import numpy as np
 
-from livecurve.app.frameflow import FrameFlow, bind_controls
-from livecurve.app.keys import (
+from livecurve.config.chainfile import load_chain
+from livecurve.engine.frameflow import FrameFlow, bind_controls
+from livecurve.errors import DeviceError, LivecurveError, MediaError
+from livecurve.preview.keys import (
     COARSE_STEPS,
     FINE_STEPS,
     KnobScale,
@@ -57,9 +59,7 @@ from livecurve.app.keys import (
     action_for,
     engine_with,
 )
-from livecurve.app.overlay import MONITORS, Composer, Knob, Status, ViewState, check_monitors
-from livecurve.config.chainfile import load_chain
-from livecurve.errors import DeviceError, LivecurveError, MediaError
+from livecurve.preview.overlay import MONITORS, Composer, Knob, Status, ViewState, check_monitors
 
 #: Font folders tried for Qt's labels (Debian's DejaVu first).
 FONT_DIRS = ("/usr/share/fonts/truetype/dejavu", "/usr/share/fonts/truetype",
@@ -304,14 +304,14 @@ class PreviewSession:
     info : MediaInfo
         The opened source's facts (size, rate, matrix, kind).
     controls : sequence of str
-        ``--control`` options (:func:`livecurve.app.frameflow.bind_controls`).
+        ``--control`` options (:func:`livecurve.engine.frameflow.bind_controls`).
     exact : bool
         Solver per pixel instead of tables.
     monitors : sequence of str or None
-        Monitors shown at the start (None: all of :data:`~livecurve.app.overlay.MONITORS`).
+        Monitors shown at the start (None: all of :data:`~livecurve.preview.overlay.MONITORS`).
     scope_step : int or None
         Lines and samples between those the scopes read (None: by picture size, see
-        :mod:`livecurve.app.overlay`).
+        :mod:`livecurve.preview.overlay`).
     """
 
     def __init__(self, chain_path, info, *, controls=(), exact: bool = False, monitors=None,

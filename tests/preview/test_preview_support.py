@@ -11,8 +11,8 @@ from pathlib import Path
 
 import numpy as np
 
-from livecurve.app.overlay import PIC_H, PIC_W, picture_scale
 from livecurve.media.atomic import write_still
+from livecurve.preview.overlay import PIC_H, PIC_W, picture_scale
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -88,7 +88,7 @@ def make_clip(path: Path, *, seconds: float = 2.0, fps: int = 25, size: str = "1
 #: becomes its message on stderr and its exit code.
 RUNNER = """
 import json, sys
-from livecurve.app.preview import run_preview
+from livecurve.preview.window import run_preview
 from livecurve.errors import LivecurveError
 kw = json.loads(sys.argv[1])
 try:

@@ -22,7 +22,7 @@ import cv2
 import numpy as np
 import pytest
 
-from livecurve.app.spread import (
+from livecurve.analysis.spread import (
     Tolerances,
     delta_e00,
     grey_lab,

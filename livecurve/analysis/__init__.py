@@ -1,0 +1,1 @@
+"""Design analysis: the chain summary, drift with temperature, spread with tolerance."""

@@ -1,0 +1,1 @@
+"""File outputs: rendered clips and stills, curves, step responses, CLF LUTs, SPICE decks."""
