@@ -33,6 +33,7 @@ class ConfigError(LivecurveError):
     def __init__(self, message: str, *, path: str | None = None, key: str | None = None,
                  value: object = None):
         self.path, self.key, self.value = path, key, value
+        self.reason = message
         where = []
         if path:
             where.append(str(path))
@@ -63,3 +64,24 @@ class DeviceError(LivecurveError):
 class OutputError(LivecurveError):
     """An output could not be written (exists without --force, disk full, interrupted)."""
     exit_code = 3
+
+
+class OutputInterrupted(OutputError):
+    """A stop signal (Ctrl-C, SIGTERM, SIGHUP) arrived while an output was being written.
+
+    The exit status is 128 + the signal number, as shells report a process a signal ended.
+    """
+
+    def __init__(self, message: str, *, signum: int = 2):
+        super().__init__(message)
+        self.signum = signum
+        self.exit_code = 128 + signum
+
+
+class Stopped(KeyboardInterrupt):
+    """Raised in the main thread when SIGTERM or SIGHUP arrives (SIGINT raises a plain
+    KeyboardInterrupt); carries the signal number so cleanup code treats every stop alike."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum

@@ -70,7 +70,11 @@ def parse_value(value, unit: str = "", *, key: str | None = None, path: str | No
         raise UnitError(f"expected a number{_unit_hint(unit)}, got a boolean", key=key,
                         path=path, value=value)
     if isinstance(value, (int, float)):
-        x = float(value)
+        try:
+            x = float(value)
+        except OverflowError:  # a whole number with hundreds of digits
+            raise UnitError("value is too large to be a number of this tool", key=key,
+                            path=path, value=_short(value)) from None
     elif isinstance(value, str):
         x = _parse_text(value, unit, key=key, path=path)
     else:
@@ -115,8 +119,21 @@ def _parse_text(text: str, unit: str, *, key, path) -> float:
 
 
 def _scaled(num: str, mult: float) -> float:
-    """num × mult rounded once, so "200u" is the double nearest 200e-6 (not 200 × 1e-6)."""
-    return float(Decimal(num) * Decimal(repr(mult)))
+    """num × mult rounded once, so "200u" is the double nearest 200e-6 (not 200 × 1e-6).
+
+    An exponent beyond what a double holds gives ±inf or 0 (refused later as not finite)
+    instead of the decimal module's overflow error.
+    """
+    try:
+        return float(Decimal(num) * Decimal(repr(mult)))
+    except ArithmeticError:  # decimal.Overflow / InvalidOperation on huge exponents
+        return float(num) * mult
+
+
+def _short(value) -> str:
+    """A value for an error message, shortened when it is hundreds of characters long."""
+    text = str(value)
+    return text if len(text) <= 40 else f"{text[:20]}…({len(text)} characters)"
 
 
 def _check_symbol(sym: str, unit: str, accepted, text, key, path) -> None:
@@ -129,16 +146,24 @@ def _check_symbol(sym: str, unit: str, accepted, text, key, path) -> None:
                     value=text)
 
 
+#: Temperatures accepted everywhere, kelvin: −55 °C … +150 °C, the widest range small-signal
+#: silicon parts are specified over (common practice); the junction laws are fitted near 27 °C.
+T_MIN_K, T_MAX_K = 218.15, 423.15
+
+
 def parse_temperature_k(value, *, key: str | None = None, path: str | None = None) -> float:
     """Read a temperature (``"35C"``, ``"35 °C"``, ``"308.15K"``, or a bare number in °C).
 
     Returns
     -------
     float
-        Kelvin.  Below 0 K is refused.
+        Kelvin, within −55 °C … +150 °C (:data:`T_MIN_K` … :data:`T_MAX_K`).
     """
     if isinstance(value, (int, float)) and not isinstance(value, bool):
-        t = float(value) + 273.15
+        try:
+            t = float(value) + 273.15
+        except OverflowError:
+            t = math.inf
     elif isinstance(value, str):
         m = re.match(rf"^\s*({_NUM})\s*(°?C|K|degC)?\s*$", value)
         if not m:
@@ -148,9 +173,9 @@ def parse_temperature_k(value, *, key: str | None = None, path: str | None = Non
         t = t if m.group(2) == "K" else t + 273.15
     else:
         raise UnitError("expected a temperature (e.g. '35C')", key=key, path=path, value=value)
-    if not math.isfinite(t) or t <= 0.0:
-        raise UnitError("temperature must be above absolute zero", key=key, path=path,
-                        value=value)
+    if not (math.isfinite(t) and T_MIN_K <= t <= T_MAX_K):
+        raise UnitError("temperature outside −55 … +150 °C, the range the junction models "
+                        "are used over", key=key, path=path, value=_short(value))
     return t
 
 

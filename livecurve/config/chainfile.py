@@ -8,6 +8,7 @@ falls back to a default.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import re
 import tomllib
@@ -18,7 +19,7 @@ from livecurve.circuit.devices import BjtModel, DiodeModel
 from livecurve.circuit.stages import KINDS, LEG_PARAMS, OpampSpec, check_param
 from livecurve.errors import ConfigError
 from livecurve.signal.component import check_space, check_standard
-from livecurve.units import parse_temperature_k, parse_value
+from livecurve.units import format_value, parse_temperature_k, parse_value
 
 DIODE_KEYS = {"is": ("is_a", "A"), "n": ("n", ""), "rs": ("rs_ohm", "ohm"),
               "eg": ("eg_ev", "eV"), "xti": ("xti", "")}
@@ -30,6 +31,8 @@ DYNAMICS_KEYS = {"gbw": "Hz", "noise_gain": "", "slew": "V/us", "f_ring": "Hz", 
 TOP_KEYS = {"title", "notes", "space", "standard", "ambient", "format", "supply", "opamp",
             "converter", "stage", "channel", "live", "sweep", "thermal", "control"}
 _ID = re.compile(r"^[a-z][a-z0-9_]*$")
+#: Chain files are hand-written text; anything larger is refused before parsing.
+MAX_CHAIN_BYTES = 4 << 20
 
 
 @dataclass(frozen=True)
@@ -106,10 +109,23 @@ def load_chain(path) -> ChainSpec:
     if not p.is_file():
         raise ConfigError("chain file not found", path=str(p))
     try:
-        raw = tomllib.loads(p.read_text(encoding="utf-8"))
+        size = p.stat().st_size
+        if size > MAX_CHAIN_BYTES:
+            raise ConfigError(f"chain file is {size} bytes; at most {MAX_CHAIN_BYTES} are read",
+                              path=str(p))
+        # utf-8-sig: a byte-order mark some editors put first is accepted and dropped
+        raw = tomllib.loads(p.read_text(encoding="utf-8-sig"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError(f"not valid TOML: {exc}", path=str(p)) from None
-    return parse_chain(raw, path=str(p))
+    except RecursionError:
+        raise ConfigError("not valid TOML here: arrays or tables nested too deeply",
+                          path=str(p)) from None
+    except OSError as exc:
+        raise ConfigError(f"cannot read the chain file: {exc.strerror}", path=str(p)) from None
+    try:
+        return parse_chain(raw, path=str(p))
+    except RecursionError:
+        raise ConfigError("values nested too deeply", path=str(p)) from None
 
 
 def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
@@ -161,7 +177,12 @@ def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
              parse_value(sw.get("to", "0.5V"), "V", key="sweep.to", path=path))
     if not sweep[1] > sweep[0]:
         raise ConfigError("sweep.to must be above sweep.from", path=path, key="sweep",
-                          value=sweep)
+                          value=f"from {sw.get('from', '-0.5V')}, to {sw.get('to', '0.5V')}")
+    for k, v in zip(("from", "to"), sweep, strict=True):
+        if not vneg <= v <= vpos:
+            raise ConfigError(f"sweep outside the supply rails {format_value(vneg, 'V')} … "
+                              f"{format_value(vpos, 'V')}", path=path, key=f"sweep.{k}",
+                              value=sw.get(k))
     stages_raw = raw.get("stage")
     if not isinstance(stages_raw, list) or not stages_raw:
         raise ConfigError("a chain needs at least one [[stage]]", path=path, key="stage")
@@ -202,6 +223,18 @@ def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
 
 
 # ---- pieces -------------------------------------------------------------------------
+@contextlib.contextmanager
+def _as_written(written):
+    """Re-raise a range check's ConfigError with the value as the file wrote it (``-10k``),
+    not the SI float it became (``-10000.0``)."""
+    try:
+        yield
+    except ConfigError as exc:
+        if exc.value is None or isinstance(exc.value, str) or isinstance(written, dict):
+            raise
+        raise ConfigError(exc.reason, path=exc.path, key=exc.key, value=written) from None
+
+
 def _unknown(d: dict, allowed, where: str, path: str) -> None:
     for k in d:
         if k not in allowed:
@@ -304,7 +337,8 @@ def _stage(raw: dict, i: int, path: str) -> StageSpec:
         else:
             v = prm.default
         if prm.name in raw:
-            check_param(sk, prm, v, f"{where}.{prm.name}", path)
+            with _as_written(raw[prm.name]):
+                check_param(sk, prm, v, f"{where}.{prm.name}", path)
         params[prm.name] = v
     device = None
     if sk.junction:
@@ -400,7 +434,8 @@ def _overrides(raw: dict, stages, path: str) -> dict:
             stage, name = _split_target(target, stages, path, key)
             unit = param_unit(stage, name, path, key)
             v = parse_value(val, unit, key=key, path=path)
-            _check_override(stage, name, v, key, path)
+            with _as_written(val):
+                _check_override(stage, name, v, key, path)
             out[int(ch)][(stage.id, name)] = v
     return out
 
@@ -440,9 +475,12 @@ def _live(raw: dict, stages, path: str) -> dict:
         lo = parse_value(_req(t, "min", where, path), unit, key=f"{where}.min", path=path)
         hi = parse_value(_req(t, "max", where, path), unit, key=f"{where}.max", path=path)
         if not hi > lo:
-            raise ConfigError("max must be above min", path=path, key=where, value=(lo, hi))
-        _check_override(stage, pname, lo, f"{where}.min", path)
-        _check_override(stage, pname, hi, f"{where}.max", path)
+            raise ConfigError("max must be above min", path=path, key=where,
+                              value=f"min {t['min']}, max {t['max']}")
+        with _as_written(t["min"]):
+            _check_override(stage, pname, lo, f"{where}.min", path)
+        with _as_written(t["max"]):
+            _check_override(stage, pname, hi, f"{where}.max", path)
         if "value" in t:
             val = parse_value(t["value"], unit, key=f"{where}.value", path=path)
         else:
@@ -450,8 +488,8 @@ def _live(raw: dict, stages, path: str) -> dict:
             if val is None or not math.isfinite(val):
                 val = 0.5 * (lo + hi)
         if not lo <= val <= hi:
-            raise ConfigError(f"value outside min…max ({lo:g}…{hi:g})", path=path,
-                              key=f"{where}.value", value=val)
+            raise ConfigError(f"value outside min … max ({t['min']} … {t['max']})", path=path,
+                              key=f"{where}.value", value=t.get("value", format_value(val, unit)))
         out[name] = LiveSpec(name, stage.id, pname, unit, lo, hi, val)
     return out
 

@@ -23,7 +23,9 @@ current source; Shockley).
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
+from pathlib import Path
 
 from livecurve.errors import ConfigError
 from livecurve.units import parse_temperature_k, parse_value
@@ -121,6 +123,8 @@ def parse_controls(raw: dict, live: dict, path: str) -> dict:
         if src is not None and not isinstance(src, str):
             raise ConfigError("source must be a text such as 'clip' or 'lfo:sine:2Hz:0.5V'",
                               path=path, key=f"{w}.source", value=src)
+        if src is not None:
+            src = resolve_file_sources(src, path)
         out[name] = ControlSpec(
             name=name, drives=drives, source=src,
             gain=parse_value(t.get("gain", 1.0), "", key=f"{w}.gain", path=path),
@@ -129,6 +133,30 @@ def parse_controls(raw: dict, live: dict, path: str) -> dict:
             scale=parse_value(t.get("scale", 1.0), "", key=f"{w}.scale", path=path),
             rate=rate, **kw)
     return out
+
+
+def resolve_file_sources(source: str, chain_path: str) -> str:
+    """``file:PATH`` parts of a chain's control source, with a relative PATH made relative to
+    the chain file's folder (not to wherever the command is run from)."""
+    from livecurve.control.spec import _SPLIT_SUM
+    folder = Path(chain_path).parent
+    if not Path(chain_path).is_file():
+        return source
+    parts = _SPLIT_SUM.split(source.strip())
+    out = []
+    for part in parts:
+        kind, sep, rest = part.strip().partition(":")
+        if kind.strip().lower() != "file" or not sep:
+            out.append(part)
+            continue
+        fields = rest.split(":")
+        opts = [f for f in fields if "=" in f and f.split("=", 1)[0].strip() in
+                ("channel", "gain")]
+        name = ":".join(f for f in fields if f not in opts).strip()
+        if name and not os.path.isabs(os.path.expanduser(name)):
+            name = str(folder / name)
+        out.append(":".join([f"{kind}", name, *opts]))
+    return " + ".join(out)
 
 
 def default_for_knob(name: str, live_spec, source: str) -> ControlSpec:

@@ -53,6 +53,7 @@ For a chain whose standard is ``auto`` the matrices are BT.709's (the common gue
 from __future__ import annotations
 
 import math
+import re
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -365,9 +366,18 @@ def _fmt_rows(a: np.ndarray, *, f32: bool = True) -> str:
     return "\n".join(" ".join(f"{x:.12g}" for x in row) for row in np.asarray(a, float))
 
 
+#: Characters XML 1.0 (W3C, 5th ed., §2.2 "Char") does not allow anywhere in a document:
+#: C0 controls other than tab, LF and CR, the surrogates, and U+FFFE / U+FFFF.
+_XML_FORBIDDEN = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ud800-\udfff\ufffe\uffff]")
+
+
 def _esc(s: str) -> str:
-    return (str(s).replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
-            .replace('"', "&quot;"))
+    """Text from a chain file made safe for an XML attribute or element: characters XML 1.0
+    forbids are dropped, line breaks become spaces (a description stays one line), and
+    ``& < > " '`` are escaped."""
+    t = _XML_FORBIDDEN.sub("", str(s)).replace("\r", " ").replace("\n", " ").replace("\t", " ")
+    return (t.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+            .replace('"', "&quot;").replace("'", "&apos;"))
 
 
 def _matrix_node(nid: str, m: np.ndarray, offset: np.ndarray, desc: str) -> str:

@@ -13,14 +13,27 @@ import numpy as np
 from livecurve.circuit.chain import ChainModel
 from livecurve.circuit.spice import chain_deck
 from livecurve.config.chainfile import ChainSpec
+from livecurve.errors import ConfigError
 from livecurve.media.atomic import atomic_output
 from livecurve.signal.component import channel_names
 
 CSV_HEADER = "input_v,out0_v,out1_v,out2_v"
+#: Sweep points accepted: two ends at least, and a file size people still open.
+POINTS_MIN, POINTS_MAX = 2, 100_000
+
+
+def check_points(points, *, key: str = "--points") -> int:
+    """A sweep point count, checked to be a whole number 2…100 000."""
+    if isinstance(points, bool) or not isinstance(points, (int, np.integer)) \
+            or not POINTS_MIN <= points <= POINTS_MAX:
+        raise ConfigError(f"sweep points must be a whole number {POINTS_MIN}…{POINTS_MAX}",
+                          key=key, value=points)
+    return int(points)
 
 
 def sweep_points(spec: ChainSpec, points: int) -> np.ndarray:
     """The uniform sweep over the chain's range, volts (same points as the deck's ``.dc``)."""
+    points = check_points(points)
     lo, hi = spec.sweep_v
     return np.linspace(lo, hi, points)
 
@@ -56,6 +69,7 @@ def write_spice(path, spec: ChainSpec, *, t_kelvin: float | None = None,
                 live: dict | None = None, points: int = 501, force: bool = True,
                 data_file: str | None = None) -> str:
     """Write the chain's self-contained ngspice deck; returns its text."""
+    points = check_points(points)
     text = chain_deck(ChainModel(spec), t_kelvin=t_kelvin, live=live, points=points,
                       data_file=data_file)
     with atomic_output(path, force=force) as tmp:

@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from livecurve.errors import LivecurveError, OutputError
+from livecurve.errors import LivecurveError
 
 ROOT = Path(__file__).resolve().parents[2]
 DEMO_CLIP = ROOT / "clips" / "demo.mp4"
@@ -35,42 +35,49 @@ def chain_path(name: str) -> Path:
     return ROOT / "configs" / f"{name}.toml"
 
 
+def demo_files(quick: bool = False) -> list[str]:
+    """Names of the files :func:`run_demo` writes (five per demo chain)."""
+    chains = DEMO_CHAINS[:1] if quick else DEMO_CHAINS
+    return [f"{n}{tail}" for n in chains for tail in
+            ("_curve.csv", "_curve.png", ".cir", ".mp4", "_before_after.png")]
+
+
 def run_demo(out_dir, *, force: bool = False, quick: bool = False, say=print) -> list[Path]:
-    """Render the demo; returns the files written."""
+    """Render the demo into *out_dir*, all or nothing; returns the files written.
+
+    Every file is made in a temporary folder beside *out_dir* and moved in when all are
+    complete; files of the same names already in *out_dir* are refused without *force*.
+    """
     from livecurve.config.chainfile import load_chain
+    from livecurve.media.atomic import atomic_folder, check_folder_target
     from livecurve.outputs import curves
     from livecurve.outputs.render import render
     out = Path(out_dir)
-    if out.exists() and any(out.iterdir()) and not force:
-        raise OutputError(f"{out}: folder exists and is not empty; use --force to write into "
-                          "it")
-    out.mkdir(parents=True, exist_ok=True)
+    names = demo_files(quick)
+    check_folder_target(out, names, force=force)
     clip = demo_clip()
-    written: list[Path] = []
     chains = DEMO_CHAINS[:1] if quick else DEMO_CHAINS
     duration = 2.0 if quick else None
-    for name in chains:
-        spec = load_chain(chain_path(name))
-        say(f"== {spec.title} ({chain_path(name).name})")
-        vin, vout = curves.curves(spec, points=401)
-        for p, fn in ((out / f"{name}_curve.csv", curves.write_curve_csv),):
-            fn(p, vin, vout, force=True)
-            written.append(p)
-        curves.write_curve_png(out / f"{name}_curve.png", vin, vout, spec, force=True)
-        curves.write_spice(out / f"{name}.cir", spec, force=True)
-        written += [out / f"{name}_curve.png", out / f"{name}.cir"]
-        clip_out = out / f"{name}.mp4"
-        rep = render(spec, str(clip), clip_out, duration_s=duration, side_by_side=True,
-                     force=True, progress=os.environ.get("CI") is None)
-        written.append(clip_out)
-        say(f"   {clip_out}: {rep.frames} frames at {rep.fps:.1f} fps "
-            f"(table bound {rep.table_bound_v * 1e3:.3f} mV)")
-        if rep.flash:
-            say(f"   {rep.flash}")
-        still = out / f"{name}_before_after.png"
-        _before_after(spec, clip, still)
-        written.append(still)
+    with atomic_folder(out, names, force=force) as tmp:
+        for name in chains:
+            spec = load_chain(chain_path(name))
+            say(f"== {spec.title} ({chain_path(name).name})")
+            vin, vout = curves.curves(spec, points=401)
+            curves.write_curve_csv(tmp / f"{name}_curve.csv", vin, vout, force=True)
+            curves.write_curve_png(tmp / f"{name}_curve.png", vin, vout, spec, force=True)
+            curves.write_spice(tmp / f"{name}.cir", spec, force=True)
+            rep = render(spec, str(clip), tmp / f"{name}.mp4", duration_s=duration,
+                         side_by_side=True, force=True,
+                         progress=os.environ.get("CI") is None)
+            say(f"   {out / (name + '.mp4')}: {rep.frames} frames at {rep.fps:.1f} fps "
+                f"(table bound {rep.table_bound_v * 1e3:.3f} mV)")
+            if rep.flash:
+                say(f"   {rep.flash}")
+            _before_after(spec, clip, tmp / f"{name}_before_after.png")
+    written = [out / n for n in names]
     say("")
+    for p in written:
+        say(f"wrote {p}")
     say(f"Results are in {out}/ (side-by-side clips: source left, processed right).")
     say("Open the live preview with, for example:")
     say(f"  livecurve preview {clip} --chain {chain_path('night_knee')}")

@@ -92,9 +92,10 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
         Let junction temperatures follow the chain's ``[thermal]`` warm-up and self-heating
         over the clip's time (tables rebuilt as they move).
     """
-    from livecurve.media.atomic import check_target, write_still
+    from livecurve.media.atomic import check_not_source, check_target, write_still
     from livecurve.media.source import open_source
     out = Path(output)
+    check_not_source(source, out)
     check_target(out, force=force)
     ext = out.suffix.lower()
     still_out = ext in STILL_EXT

@@ -80,9 +80,10 @@ BAD = [
     ("unknown_top_key", _set(("colour",), "warm"), "colour", "warm"),
     ("unknown_stage_key", _set(("stage", 0, "r_inn"), "10k"), "stage[0] (gain).r_inn", "10k"),
     ("missing_r_in", _delete(("stage", 0, "r_in")), "stage[0] (gain).r_in", None),
+    # values are quoted as written ("-22k"), not as the SI float they became ("-22000.0")
     ("negative_resistance", _set(("stage", 0, "r_f"), "-22k"), "stage[0] (gain).r_f",
-     "-22000"),
-    ("negative_r_off", _set(("stage", 0, "r_off"), "-1k"), "stage[0] (gain).r_off", "-1000"),
+     "'-22k'"),
+    ("negative_r_off", _set(("stage", 0, "r_off"), "-1k"), "stage[0] (gain).r_off", "'-1k'"),
     ("rails_reversed", _set(("supply",), {"v_pos": "-12V", "v_neg": "12V"}), "supply",
      "v_pos=-12 V, v_neg=12 V"),
     ("junction_is_negative", _set(("stage", 1, "device", "is"), "-1e-14"),
@@ -107,8 +108,8 @@ BAD = [
     ("live_missing_param", _set(("live", "k", "target"), "knee.r_x"), "live.k.target",
      "r_x"),
     ("live_min_above_max", _set(("live", "k"), {"target": "knee.i_ref", "min": "200uA",
-                                                "max": "40uA"}), "live.k", "0.0002"),
-    ("live_value_outside", _set(("live", "k", "value"), "300uA"), "live.k.value", "0.0003"),
+                                                "max": "40uA"}), "live.k", "min 200uA, max 40uA"),
+    ("live_value_outside", _set(("live", "k", "value"), "300uA"), "live.k.value", "'300uA'"),
     ("bad_card_arity", _set(("stage", 2, "elements"), ["R1 in out", "U1 0 in out"]),
      "stage[2] (user).elements[0]", "R1 in out"),
     ("bad_card_letter", _set(("stage", 2, "elements"), ["X1 in out 1k", "U1 0 in out"]),
@@ -122,7 +123,7 @@ BAD = [
     ("duplicate_id", _set(("stage", 1, "id"), "gain"), "stage.id", "gain"),
     ("bad_override_channel", _set(("channel",), {"5": {"gain.r_f": "10k"}}), "channel.5", None),
     ("override_negative", _set(("channel",), {"1": {"gain.r_f": "-1k"}}), "channel.1.gain.r_f",
-     "-1000"),
+     "'-1k'"),
     ("bad_space", _set(("space",), "hsv"), "space", "hsv"),
 ]
 
