@@ -209,6 +209,10 @@ def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
         if not th["speedup"] > 0:
             raise ConfigError("speed-up must be above zero", path=path, key="thermal.speedup",
                               value=thermal["speedup"])
+    for k in ("title", "notes"):
+        if k in raw and not isinstance(raw[k], str):
+            raise ConfigError("expected a text in quotes", path=path, key=k,
+                              value=None if isinstance(raw[k], dict) else raw[k])
     fmt = raw.get("format", "auto")
     if not isinstance(fmt, str):
         raise ConfigError("format must be a name such as '1080p30' or 'auto'", path=path,

@@ -64,7 +64,10 @@ def parse_amount(text: str, unit: str, *, key: str = "value") -> float:
         if tail.endswith(unit):
             tail = tail[: -len(unit)]
         if tail in _PREFIX:
-            v = float(Decimal(number).scaleb(_PREFIX[tail]))
+            try:
+                v = float(Decimal(number).scaleb(_PREFIX[tail]))
+            except ArithmeticError:  # an exponent beyond decimal's range: not finite
+                v = math.inf
             if math.isfinite(v):
                 return v
     raise UnitError(f"expected a number in {unit} (SI prefixes p n u m k M G allowed), "
