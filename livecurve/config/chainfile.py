@@ -321,7 +321,7 @@ def _stage(raw: dict, i: int, path: str) -> StageSpec:
         build_user_stage(spec.elements, models, OpampSpec(), name=sid,
                          key=f"{where}.elements", path=path)
         return spec
-    if kind not in KINDS:
+    if not isinstance(kind, str) or kind not in KINDS:
         raise ConfigError(f"unknown stage kind; accepted: {', '.join(KINDS)}, netlist",
                           path=path, key=f"{where}.kind", value=kind)
     sk = KINDS[kind]

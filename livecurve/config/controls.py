@@ -77,12 +77,12 @@ def parse_controls(raw: dict, live: dict, path: str) -> dict:
                 raise ConfigError(f"unknown key; accepted here: {', '.join(sorted(_KEYS))}",
                                   path=path, key=f"{w}.{k}", value=t[k])
         drives = t.get("drives")
-        if drives not in live:
+        if not isinstance(drives, str) or drives not in live:
             raise ConfigError(f"drives must name a [live.*] parameter; live: "
                               f"{', '.join(live) or 'none'}", path=path, key=f"{w}.drives",
                               value=drives)
         conv = t.get("converter", "volts")
-        if conv not in CONVERTERS:
+        if not isinstance(conv, str) or conv not in CONVERTERS:
             raise ConfigError(f"converter must be one of {', '.join(CONVERTERS)}", path=path,
                               key=f"{w}.converter", value=conv)
         unit = live[drives].unit
@@ -91,7 +91,7 @@ def parse_controls(raw: dict, live: dict, path: str) -> dict:
                               f"{unit or 'plain numbers'}", path=path, key=f"{w}.converter",
                               value=conv)
         rate = t.get("rate", "line")
-        if rate not in RATES:
+        if not isinstance(rate, str) or rate not in RATES:
             raise ConfigError(f"rate must be one of {', '.join(RATES)}", path=path,
                               key=f"{w}.rate", value=rate)
         env = None
