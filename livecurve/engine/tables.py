@@ -26,6 +26,10 @@ N_MAX = 65537
 M_START = 9
 M_MAX = 257
 N_MAX_2D = 4097
+#: Solver evaluations one 2-D table may spend.  The demo chains need under 70 000; a sweep
+#: or knob range far wider than the circuit's useful range would otherwise run for minutes
+#: (4097 × 257 × 2 ≈ 2.1 million solves) and still miss the goal.
+MAX_SOLVES_2D = 600_000
 
 
 @dataclass
@@ -116,7 +120,9 @@ def build_table_1d(fn: Callable[[np.ndarray], np.ndarray], lo_v: float, hi_v: fl
         xf[::2], xf[1::2] = x, xm
         yf[::2], yf[1::2] = y, ym
         if not np.all(np.isfinite(yf)):
-            raise SolverError("table build: the solver returned non-finite values")
+            bad = float(xf[np.argmin(np.isfinite(yf))])
+            raise SolverError(f"table build: the solver gave no finite output at input "
+                              f"{bad:.6g} V")
         err = _interp_err(xf, yf)
         if err <= target_v or 2 * n - 1 > n_max:
             return Table(lo_v, hi_v, y.astype(np.float32), err_v=err, n_solves=solves)
@@ -148,27 +154,49 @@ def build_table_2d(fn: Callable[[np.ndarray, float], np.ndarray], lo_v: float, h
     solves = 0
     for c in axis(3):
         # each axis gets half the target: a bilinear read adds the two axes' errors
-        t = build_table_1d(lambda v, c=c: fn(v, c), lo_v, hi_v, target_v=0.5 * target_v,
-                           n_max=n_max)
+        try:
+            t = build_table_1d(lambda v, c=c: fn(v, c), lo_v, hi_v, target_v=0.5 * target_v,
+                               n_max=n_max)
+        except SolverError as exc:
+            raise SolverError(f"{exc}, control {c:.6g}") from None
         n = max(n, t.n)
         solves += t.n_solves
     x = np.linspace(lo_v, hi_v, n)
     xm = 0.5 * (x[:-1] + x[1:])
     m = M_START
+
+    def column(c):
+        y = fn(x, c)
+        if not np.all(np.isfinite(y)):
+            raise SolverError(f"table build: the solver gave no finite output at input "
+                              f"{float(x[np.argmin(np.isfinite(y))]):.6g} V, control {c:.6g}")
+        return y
+
     cs = axis(m)
-    cols = [fn(x, c) for c in cs]
+    cols = [column(c) for c in cs]
     solves += n * m
     while True:
         cm = mids(cs)
-        mid_cols = [fn(x, c) for c in cm]
+        mid_cols = [column(c) for c in cm]
         solves += n * len(cm)
-        err = 0.0
+        err, worst = 0.0, (0, 0)
         for j in range(len(cm)):
             a = cols[j].astype(np.float32).astype(np.float64)
             b = cols[j + 1].astype(np.float32).astype(np.float64)
-            err = max(err, float(np.max(np.abs(0.5 * (a + b) - mid_cols[j]))))
+            dev = np.abs(0.5 * (a + b) - mid_cols[j])
+            k = int(np.argmax(dev))
+            if dev[k] > err:
+                err, worst = float(dev[k]), (k, j)
         if err <= 0.5 * target_v or 2 * m - 1 > m_max:
             break
+        if solves + n * (2 * m - 2) > MAX_SOLVES_2D:
+            raise SolverError(
+                f"table build stopped after {solves} solver evaluations (limit "
+                f"{MAX_SOLVES_2D}): at input {x[worst[0]]:.6g} V, control {cm[worst[1]]:.6g} "
+                f"the table is still {err * 1e3:.3g} mV off the solver (goal "
+                f"{0.5 * target_v * 1e3:.3g} mV); narrow the chain's [sweep] "
+                f"({lo_v:.6g} … {hi_v:.6g} V) or the knob's min … max "
+                f"({c_lo:.6g} … {c_hi:.6g})")
         merged = []
         for j in range(len(cm)):
             merged += [cols[j], mid_cols[j]]
