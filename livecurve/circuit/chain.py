@@ -17,6 +17,7 @@ from livecurve.circuit.netlist import Netlist, solve_sweep
 from livecurve.circuit.stages import build_stage
 from livecurve.circuit.userdeck import build_user_stage
 from livecurve.config.chainfile import BJT_KEYS, DIODE_KEYS, ChainSpec, StageSpec
+from livecurve.errors import SolverError
 
 
 class ChainModel:
@@ -123,7 +124,10 @@ class ChainModel:
             sol: list = []
             vs = v[order]
             x0 = warm[1] if warm is not None and abs(warm[0] - vs[0]) < 0.05 else None
-            out[order] = solve_sweep(net, vs, t_kelvin=tk, x0=x0, solution=sol)
+            try:
+                out[order] = solve_sweep(net, vs, t_kelvin=tk, x0=x0, solution=sol)
+            except SolverError as exc:  # say which file and channel as well
+                raise SolverError(f"{self.spec.path}: channel {channel}: {exc}") from None
             if sol:
                 self._warm[key] = (vs[0], sol[0])
             v = out

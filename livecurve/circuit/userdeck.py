@@ -100,9 +100,55 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
     nodes = net.node_names()
     if "out" not in nodes:
         raise ConfigError("the netlist has no node 'out'", path=path, key=key)
+    _check_dc_paths(lines, path=path, key=key)
     if sum(1 for e in net.elements if "in" in e.nodes) < 2:
         raise ConfigError("nothing is connected to node 'in'", path=path, key=key)
     return net
+
+
+def _check_dc_paths(lines, *, path, key) -> None:
+    """Refuse a node no DC path joins to ground (node 0): its voltage is undefined, so the
+    DC solver cannot converge there.  Resistors, voltage sources, controlled-source
+    outputs, diodes and transistors carry DC; a current source does not; an op-amp output
+    is driven against ground.  The message names the node and the elements on it."""
+    adj: dict[str, set] = {"0": set(), "in": {"0"}}
+    on_node: dict[str, list] = {}
+
+    def join(a, b):
+        adj.setdefault(a, set()).add(b)
+        adj.setdefault(b, set()).add(a)
+
+    for raw in lines:
+        card = raw.split(";")[0].split()
+        if not card:
+            continue
+        letter, f = card[0][0].upper(), card[1:]
+        terms = {"R": f[:2], "V": f[:2], "I": f[:2], "E": f[:4], "D": f[:2], "Q": f[:3],
+                 "U": f[:3]}.get(letter, [])
+        for n in terms:
+            adj.setdefault(n, set())
+            on_node.setdefault(n, []).append(card[0])
+        if letter in ("R", "V", "D"):
+            join(f[0], f[1])
+        elif letter == "E":
+            join(f[0], f[1])
+        elif letter == "Q":
+            join(f[0], f[1])
+            join(f[1], f[2])
+        elif letter == "U":
+            join(f[2], "0")
+    seen, todo = {"0"}, ["0"]
+    while todo:
+        for m in adj[todo.pop()]:
+            if m not in seen:
+                seen.add(m)
+                todo.append(m)
+    for n in adj:
+        if n not in seen:
+            raise ConfigError(f"node '{n}' has no DC path to ground (0): only "
+                              f"{', '.join(on_node.get(n, [])) or 'nothing'} reach it, so its "
+                              "voltage is undefined and the DC solver cannot converge",
+                              path=path, key=key, value=n)
 
 
 def element_values(lines) -> dict:
