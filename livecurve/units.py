@@ -173,7 +173,7 @@ def parse_temperature_k(value, *, key: str | None = None, path: str | None = Non
         t = t if m.group(2) == "K" else t + 273.15
     else:
         raise UnitError("expected a temperature (e.g. '35C')", key=key, path=path, value=value)
-    if not (math.isfinite(t) and T_MIN_K <= t <= T_MAX_K):
+    if not (math.isfinite(t) and T_MIN_K - 1e-9 <= t <= T_MAX_K + 1e-9):
         raise UnitError("temperature outside −55 … +150 °C, the range the junction models "
                         "are used over", key=key, path=path, value=_short(value))
     return t
