@@ -118,7 +118,7 @@ def test_render_refuses_its_own_source_even_with_force(tmp_path, spelling):
 # ---- argument errors and unwritable folders leave nothing ------------------------------------
 @pytest.mark.parametrize("verb, extra", [
     ("drift", ["--steps", "1"]),
-    ("drift", ["--from", "-80C"]),
+    ("drift", ["--from=-80C"]),
     ("spread", ["--trials", "0"]),
 ])
 def test_argument_errors_leave_no_empty_folder(tmp_path, verb, extra):
