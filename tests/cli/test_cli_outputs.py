@@ -171,9 +171,11 @@ def test_existing_folder_gets_all_new_files_at_once(tmp_path):
 
 
 _SPREAD_FULL = """
-import sys
+import os, sys
 from livecurve.cli import main
-sys.exit(main(["spread", sys.argv[2], "--trials", "40", "--quiet", "--out", sys.argv[1] + "/sp"]))
+rc = main(["spread", sys.argv[2], "--trials", "40", "--quiet", "--out", sys.argv[1] + "/sp"])
+print("LEFT", sorted(os.listdir(sys.argv[1])))
+sys.exit(rc)
 """
 
 
@@ -200,8 +202,9 @@ def test_full_disk_says_disk_full_and_publishes_nothing(tmp_path):
     assert res.returncode == 3, (res.returncode, res.stderr)
     assert "disk full" in res.stderr, res.stderr
     assert "encoder" not in res.stderr
-    # the mount is gone with the namespace; what the script saw is in its message only
     assert "Traceback" not in res.stderr
+    # the mount is gone with the namespace: the script lists what the run left on it
+    assert "LEFT ['filler']" in res.stdout, res.stdout
 
 
 # ---- stop signals and stale partials -----------------------------------------------------------
