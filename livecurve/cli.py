@@ -51,6 +51,17 @@ def _seconds(text: str) -> float:
     return v
 
 
+def _positive(text: str) -> float:
+    import math
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, e.g. 60; got {text!r}") from None
+    if not (math.isfinite(v) and v > 0):
+        raise argparse.ArgumentTypeError(f"must be a number above 0, got {text!r}")
+    return v
+
+
 # ---- helpers the verbs share -------------------------------------------------------------------
 def _chain(path):
     from livecurve.config.chainfile import load_chain
@@ -363,7 +374,7 @@ def _verb_preview(sub):
     _force_arg(c, "the --snapshot file")
     c.add_argument("--drift", action="store_true",
                    help="junction temperatures follow the chain's [thermal] warm-up")
-    c.add_argument("--speedup", type=float, default=None, metavar="FACTOR",
+    c.add_argument("--speedup", type=_positive, default=None, metavar="FACTOR",
                    help="thermal time runs this many times faster than the clip (with "
                         "--drift), e.g. --speedup 60")
 
