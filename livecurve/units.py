@@ -176,7 +176,7 @@ def parse_temperature_k(value, *, key: str | None = None, path: str | None = Non
     if not (math.isfinite(t) and T_MIN_K - 1e-9 <= t <= T_MAX_K + 1e-9):
         raise UnitError("temperature outside −55 … +150 °C, the range the junction models "
                         "are used over", key=key, path=path, value=_short(value))
-    return t
+    return min(max(t, T_MIN_K), T_MAX_K)  # -55C + 273.15 rounds just below T_MIN_K
 
 
 def format_value(x: float, unit: str = "") -> str:

@@ -93,3 +93,10 @@ def test_set_outside_the_knob_range_speaks_in_its_units(tmp_path, capsys):
     assert rc == 2
     assert "'300uA'" in err and "50 µA … 200 µA" in err, err
     assert list(tmp_path.iterdir()) == []
+
+
+def test_the_documented_ends_reach_drift_unrefused():
+    # -55 + 273.15 is 218.14999999999998 in binary floating point; the ends stay in range
+    from livecurve.analysis.drift import temperature_steps
+    temps = temperature_steps(parse_temperature_k("-55C"), parse_temperature_k("150C"), 2)
+    assert temps[0] == 218.15 and temps[-1] == 423.15
