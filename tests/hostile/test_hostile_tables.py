@@ -54,3 +54,34 @@ def test_no_finite_output_in_2d_names_input_and_control():
 
     with pytest.raises(SolverError, match=r"no finite output at input .* V, control 2"):
         tables.build_table_2d(hole, -1.0, 1.0, 1.0, 2.0)
+
+
+def test_modulated_knob_over_a_rail_to_rail_sweep_is_refused_not_hung(tmp_path, monkeypatch):
+    # The demo knee chain with its sweep widened to the rails (±12 V): the 2-D table for the
+    # modulated knob cannot reach its goal there; the build stops at its budget and says
+    # where, instead of spending ~2 million solver evaluations (minutes) on it.
+    import re
+
+    from livecurve.config.chainfile import load_chain
+    from livecurve.engine.pipeline import FrameEngine
+    from tests.conftest import ROOT
+    text = (ROOT / "configs" / "night_knee.toml").read_text()
+    text, n = re.subn(r'\[sweep\]\nfrom = "[^"]+"\nto = "[^"]+"',
+                      '[sweep]\nfrom = "-12V"\nto = "12V"', text)
+    assert n == 1
+    p = tmp_path / "wide.toml"
+    p.write_text(text)
+    spec = load_chain(p)
+    calls = [0]
+    real = tables.build_table_2d
+
+    def counting(fn, *a, **k):
+        def counted(v, c):
+            calls[0] += np.size(v)
+            return fn(v, c)
+        return real(counted, *a, **k)
+
+    monkeypatch.setattr(tables, "build_table_2d", counting)
+    with pytest.raises(SolverError, match=r"stopped after .* at input .* V, control"):
+        FrameEngine(spec, modulated=("knee_current",))
+    assert calls[0] <= tables.MAX_SOLVES_2D + 3 * 3 * tables.N_MAX_2D
