@@ -501,10 +501,10 @@ def spread_figure(res: SpreadResult, spec: ChainSpec, *, top: int = 12,
         labels = [r["part"] + ("" if r["quantity"] == "R" else f" {r['quantity']}")
                   for r in rows]
         y = np.arange(len(rows))[::-1]
-        ax.barh(y, [r["effect_mv"] for r in rows],
-                color=[qcol[r["quantity"]] for r in rows],
-                hatch=None if all(r["quantity"] == "R" for r in rows) else
-                [hatches[r["quantity"]] for r in rows])
+        bars = ax.barh(y, [r["effect_mv"] for r in rows],
+                       color=[qcol[r["quantity"]] for r in rows])
+        for bar, r in zip(bars, rows, strict=True):
+            bar.set_hatch(hatches[r["quantity"]])
         ax.set_yticks(y, labels, fontsize="small")
         from matplotlib.patches import Patch
         seen = list(dict.fromkeys(r["quantity"] for r in rows))

@@ -36,6 +36,14 @@ def _is_terminal(stream) -> bool:
         return False
 
 
+def _columns(stream) -> int:
+    import os
+    try:
+        return os.get_terminal_size(stream.fileno()).columns
+    except (AttributeError, ValueError, OSError):
+        return 0
+
+
 class Progress:
     """A progress display for *total* items (None when unknown).
 
@@ -117,15 +125,18 @@ class Progress:
     def _start_bar(self) -> None:
         from tqdm import tqdm
         self.stream.write("\r\x1b[2K")  # clear the starting line
+        sized = _columns(self.stream) > 0  # a pseudo-terminal may report 0 columns
         self._bar = tqdm(total=self.total, initial=self.done, desc=self.desc, unit=self.unit,
-                         file=self.stream, dynamic_ncols=True, mininterval=0.25,
-                         leave=True)
+                         file=self.stream, dynamic_ncols=sized, ncols=None if sized else 80,
+                         nrows=None if sized else 24,
+                         mininterval=0.25, leave=True)
 
     def update(self, done: int, *, force: bool = False) -> None:
         """*done* items are finished (an absolute count)."""
         now = time.perf_counter()
         if done > 0 and self.t_first is None:
             self.t_first = now
+            self._last_plain = now  # periodic lines count from the end of the start-up
         self.done = int(done)
         if not self.enabled or self._closed:
             return
