@@ -128,7 +128,7 @@ def test_bar_on_a_real_terminal(cols):
 
     from tests.conftest import ROOT
     master, slave = pty.openpty()
-    fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 24, cols, 0, 0))
+    fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 24 if cols else 0, cols, 0, 0))
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
     p = subprocess.Popen([sys.executable, "-c", SNIPPET], stdin=slave, stdout=slave,
                          stderr=slave, close_fds=True, env=env)
