@@ -1,8 +1,9 @@
 """``livecurve demo``: the built-in demo clip through the demo chains, to a folder.
 
-For each demo chain it writes the processed clip (source | processed, side by side),
-a before/after still, the DC curves (CSV and PNG) and the SPICE deck, then says how to
-open the live preview.  The night-knee chain is driven by the clip's own soundtrack.
+For each demo chain it writes the DC curves (CSV and figure), the SPICE deck, the
+processed clip (source | processed, side by side) and a before/after still under a band
+labelling each half, printing every file as it is written, then says how to open the live
+preview.  The night-knee chain is driven by the clip's own soundtrack.
 """
 
 from __future__ import annotations
@@ -53,23 +54,25 @@ def run_demo(out_dir, *, force: bool = False, quick: bool = False, say=print) ->
         spec = load_chain(chain_path(name))
         say(f"== {spec.title} ({chain_path(name).name})")
         vin, vout = curves.curves(spec, points=401)
-        for p, fn in ((out / f"{name}_curve.csv", curves.write_curve_csv),):
-            fn(p, vin, vout, force=True)
-            written.append(p)
-        curves.write_curve_png(out / f"{name}_curve.png", vin, vout, spec, force=True)
-        curves.write_spice(out / f"{name}.cir", spec, force=True)
-        written += [out / f"{name}_curve.png", out / f"{name}.cir"]
+        p = out / f"{name}_curve.csv"
+        curves.write_curve_csv(p, vin, vout, force=True)
+        _wrote(p, written, say)
+        p = out / f"{name}_curve.png"
+        curves.write_curve_png(p, vin, vout, spec, force=True)
+        _wrote(p, written, say)
+        p = out / f"{name}.cir"
+        curves.write_spice(p, spec, force=True)
+        _wrote(p, written, say)
         clip_out = out / f"{name}.mp4"
         rep = render(spec, str(clip), clip_out, duration_s=duration, side_by_side=True,
                      force=True, progress=os.environ.get("CI") is None)
-        written.append(clip_out)
-        say(f"   {clip_out}: {rep.frames} frames at {rep.fps:.1f} fps "
-            f"(table bound {rep.table_bound_v * 1e3:.3f} mV)")
+        _wrote(clip_out, written, say, f"{rep.frames} frames at {rep.fps:.1f} fps, table "
+                                       f"bound {rep.table_bound_v * 1e3:.3f} mV")
         if rep.flash:
             say(f"   {rep.flash}")
         still = out / f"{name}_before_after.png"
         _before_after(spec, clip, still)
-        written.append(still)
+        _wrote(still, written, say, "labelled halves: before | after")
     say("")
     say(f"Results are in {out}/ (side-by-side clips: source left, processed right).")
     say("Open the live preview with, for example:")
@@ -80,8 +83,32 @@ def run_demo(out_dir, *, force: bool = False, quick: bool = False, say=print) ->
     return written
 
 
+def _wrote(path: Path, written: list, say, note: str = "") -> None:
+    written.append(path)
+    say(f"   wrote {path}" + (f" ({note})" if note else ""))
+
+
+#: Height of the label band above the before/after still, pixels.
+LABEL_BAND_PX = 48
+
+
+def label_band(width: int, labels, *, height: int = LABEL_BAND_PX) -> np.ndarray:
+    """A dark band (H, W, 3) uint16 with *labels* written centred over equal parts of it."""
+    import cv2
+    band = np.full((height, width, 3), 0x1C, dtype=np.uint8)  # OpenCV draws text in 8 bits
+    part = width // len(labels)
+    font, scale, thick = cv2.FONT_HERSHEY_SIMPLEX, max(0.5, height / 48), 2
+    for i, text in enumerate(labels):
+        (tw, th), _ = cv2.getTextSize(text, font, scale, thick)
+        x = i * part + max(4, (part - tw) // 2)
+        cv2.putText(band, text, (x, (height + th) // 2), font, scale, (0xE8,) * 3, thick,
+                    cv2.LINE_AA)
+    return band.astype(np.uint16) * 257
+
+
 def _before_after(spec, clip: Path, path: Path, *, at_s: float = 2.0) -> None:
-    """A 16-bit PNG: the frame at *at_s* before (left) and after (right) the chain."""
+    """A 16-bit PNG: the frame at *at_s* before (left) and after (right) the chain, under
+    a band labelling each half.  The pictures themselves are untouched."""
     from livecurve.engine.frameflow import FrameFlow, bind_controls
     from livecurve.media.atomic import write_still
     from livecurve.media.source import open_source
@@ -94,4 +121,7 @@ def _before_after(spec, clip: Path, path: Path, *, at_s: float = 2.0) -> None:
                      out_dtype=np.uint16)
     after = flow.process(fr.rgb, fr.index)
     before = fr.rgb.astype(np.uint16) * 257
-    write_still(path, np.concatenate([before, after], axis=1), force=True)
+    pair = np.concatenate([before, after], axis=1)
+    band = label_band(pair.shape[1], [f"before: source at {at_s:g} s",
+                                      f"after: {spec.title}"])
+    write_still(path, np.concatenate([band, pair], axis=0), force=True)
