@@ -198,3 +198,17 @@ def test_demo_chains_check_clean(config):
     text = chain_summary(load_chain(config))
     assert text.rstrip().endswith("check: no warnings")
     assert np.all([("955.2 m" not in text), ("e-05" not in text)])
+
+
+def test_demo_chain_gbw_comment_is_true():
+    # night_knee.toml promises "noise gain 21 → about 11.4 MHz closed loop"
+    path = ROOT / "configs" / "night_knee.toml"
+    m = re.search(r'gbw = "(\d+)MHz"\s+# noise gain (\d+) → about ([\d.]+) MHz closed loop',
+                  path.read_text())
+    assert m
+    gbw, ng, f_cl = float(m.group(1)) * 1e6, int(m.group(2)), float(m.group(3)) * 1e6
+    dyn = stage_dynamics(load_chain(path).stage("restore"))
+    assert dyn.noise_gain == ng
+    assert gbw / ng == pytest.approx(f_cl, abs=0.05e6)  # the comment's rounding
+    # the continuous model's −3 dB point is that closed-loop pole
+    assert dyn.bandwidth_3db_hz == pytest.approx(gbw / ng, rel=0.01)
