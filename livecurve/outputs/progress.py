@@ -5,10 +5,10 @@
   lines instead: when the run starts, at each quarter of the total (every 30 s when the
   total is unknown), and at the end.
 * The first item of a run includes the one-time work before steady state: numba
-  compiling its kernels on first use (later runs load them from the cache) and the
-  tables being built.  Until it is done the bar shows a *starting* phase instead of a
-  rate, and rates and time left are measured from the end of the first item, so the
-  first frame's start-up never shows as "0.0 fps, 5508 s left".
+  compiling its kernels on first use (later runs load them from the cache).  Until it
+  is done the bar shows a *starting* phase instead of a rate, and rates and time left
+  are measured from the end of the first item, so the first frame's start-up never
+  shows as "0.0 fps, 5508 s left".
 
 API (what the loops call)::
 
@@ -24,7 +24,7 @@ import sys
 import time
 
 #: Text of the phase before the first item is done.
-STARTING = "starting: compiling kernels on first use and building tables"
+STARTING = "starting: compiling kernels on first use"
 #: Seconds between plain lines when the total is unknown.
 PLAIN_EVERY_S = 30.0
 
