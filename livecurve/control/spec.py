@@ -153,10 +153,9 @@ def _parse_one(part: str, spec: str, clip_path, *, dry: bool = False) -> Control
             if channel != "mix":
                 channels = max(channels, channel + 1)
             rate = parse_amount(o.get("rate", "48000"), "Hz", key="device rate")
-            if dry:
-                for k in ("seconds", "gain"):
-                    parse_amount(o.get(k, "1"), {"seconds": "s", "gain": "V"}[k],
-                                 key=f"device {k}")
+            if dry:  # the options as a device would read them; the device is not opened
+                parse_amount(o.get("seconds", "4"), "s", key="device seconds")
+                parse_amount(o.get("gain", "1"), "V", key="device gain")
                 return None
             from livecurve.control.live import LiveInput
 
