@@ -11,8 +11,9 @@ an ngspice ``.temp`` sweep of the exported deck computes; the tests compare the 
 Outputs
 -------
 * CSV, one row per (temperature, input): ``temp_c,input_v,out0_v,out1_v,out2_v``.
-* PNG: per channel, the curves (top) and their shift from the curve at the reference
-  temperature (bottom, mV), one trace per temperature coloured from cold (blue) to hot (red).
+* Figure (PNG, SVG or PDF by extension): per channel, the curves (top) and their shift from
+  the curve at the reference temperature (bottom, mV), one trace per temperature coloured
+  from cold (blue) to hot (red); each panel has its own axes.
 * Strip PNG: a reference frame — a grey step wedge, a continuous grey ramp and 75 % colour
   bars made in code, or a given still — through the whole frame path
   (:class:`livecurve.engine.frameflow.FrameFlow`, dynamics included) at each temperature,
@@ -38,6 +39,8 @@ CSV_HEADER = "temp_c,input_v,out0_v,out1_v,out2_v"
 #: silicon parts are specified over (common practice); the device laws are fitted near 27 °C.
 T_MIN_K, T_MAX_K = 218.15, 423.15
 MAX_STEPS = 41
+#: Background and label colours of the picture strip (BGR).
+STRIP_BG_BGR, STRIP_TEXT_BGR = (28, 24, 22), (225, 225, 225)
 #: 75 % colour bars as R′G′B′ fractions (white, yellow, cyan, green, magenta, red, blue,
 #: black): every channel at 0 or 0.75 (SMPTE RP 219 / ITU-R BT.709 75 % bars).
 BARS_75 = np.array([[1, 1, 1], [1, 1, 0], [0, 1, 1], [0, 1, 0], [1, 0, 1], [1, 0, 0],
@@ -186,70 +189,58 @@ def tile_strip(frames: list, temps_k, *, columns: int = 4) -> np.ndarray:
     """Tile pictures (RGB uint8) in a grid with a temperature label under each; BGR uint8."""
     import cv2
 
-    from livecurve.outputs.plots import BG_BGR, TEXT_BGR
     h, w = frames[0].shape[:2]
     cols = min(columns, len(frames))
     rows = math.ceil(len(frames) / cols)
     pad, lab = 8, 26
-    img = np.full((rows * (h + lab + pad) + pad, cols * (w + pad) + pad, 3), BG_BGR,
+    img = np.full((rows * (h + lab + pad) + pad, cols * (w + pad) + pad, 3), STRIP_BG_BGR,
                   dtype=np.uint8)
     for i, (fr, t) in enumerate(zip(frames, np.asarray(temps_k), strict=True)):
         r, c = divmod(i, cols)
         y0, x0 = pad + r * (h + lab + pad), pad + c * (w + pad)
         img[y0:y0 + h, x0:x0 + w] = fr[:, :, ::-1]
         cv2.putText(img, f"{t - 273.15:.1f} C", (x0 + 4, y0 + h + 19),
-                    cv2.FONT_HERSHEY_SIMPLEX, 0.55, TEXT_BGR, 1, cv2.LINE_AA)
+                    cv2.FONT_HERSHEY_SIMPLEX, 0.55, STRIP_TEXT_BGR, 1, cv2.LINE_AA)
     return img
 
 
-def _ramp_bgr(k: int, n: int) -> tuple[int, int, int]:
-    """Cold (blue) to hot (red) trace colour, BGR."""
-    a = k / max(n - 1, 1)
-    cold, mid, hot = np.array([235, 150, 60]), np.array([200, 200, 200]), np.array([50, 70, 235])
-    c = cold + (mid - cold) * 2 * a if a < 0.5 else mid + (hot - mid) * (2 * a - 1)
-    return tuple(int(v) for v in c)
-
-
-def family_panel(x: np.ndarray, ys, colours, *, title: str, xlabel: str, ylabel: str,
-                 size=(480, 300)) -> np.ndarray:
-    """Curves *ys* against *x*, each in its own BGR colour, on a grid; BGR uint8 image."""
-    from livecurve.outputs.plots import line_plot
-    return line_plot(np.asarray(x), ys, colours=list(colours), thickness=1, title=title,
-                     xlabel=f"{xlabel}   [{ylabel}]", size=size)
-
-
 def drift_figure(vin: np.ndarray, out: np.ndarray, temps_k, spec: ChainSpec, *,
-                 ref_index: int = 0) -> np.ndarray:
-    """Curves (top row) and shift from the reference temperature (bottom row, mV) per
-    channel, with a colour key of the temperatures; BGR uint8."""
-    import cv2
+                 ref_index: int = 0, live: dict | None = None):
+    """Per channel, the curves (top row, V) and their shift from the curve at the
+    reference temperature (bottom row, mV), one line per temperature coloured cold (blue)
+    to hot (red) with a colour scale in °C.  Every panel keeps its own axes (a channel
+    that barely moves is not flattened by one that moves a lot).  Returns a Figure."""
+    from matplotlib import colormaps
+    from matplotlib.cm import ScalarMappable
+    from matplotlib.colors import Normalize
 
-    from livecurve.outputs.plots import BG_BGR, TEXT_BGR
-    temps = np.asarray(temps_k)
-    n = len(temps)
-    cols = [_ramp_bgr(k, n) for k in range(n)]
+    from livecurve.outputs.plots import knob_text, new_figure
+    temps_c = np.asarray(temps_k, dtype=np.float64) - 273.15
     names = channel_names(spec.space)
-    top_row, bot_row = [], []
+    norm = Normalize(float(temps_c[0]), float(temps_c[-1]))
+    cmap = colormaps["coolwarm"]
+    fig, axes = new_figure(1440, 700, nrows=2, ncols=3)
     for c in range(3):
-        top_row.append(family_panel(vin, list(out[:, c]), cols,
-                                    title=f"channel {c} ({names[c]})", xlabel="input (V)",
-                                    ylabel="output V"))
+        top, bot = axes[0, c], axes[1, c]
         shift = (out[:, c] - out[ref_index, c]) * 1e3
-        bot_row.append(family_panel(vin, list(shift), cols,
-                                    title=f"shift from {temps[ref_index] - 273.15:.1f} C",
-                                    xlabel="input (V)", ylabel="mV"))
-    body = np.concatenate([np.concatenate(top_row, axis=1), np.concatenate(bot_row, axis=1)])
-    head = np.full((48, body.shape[1], 3), BG_BGR, dtype=np.uint8)
-    font = cv2.FONT_HERSHEY_SIMPLEX
-    cv2.putText(head, f"{spec.title}: DC transfer over temperature", (12, 20), font, 0.55,
-                TEXT_BGR, 1, cv2.LINE_AA)
-    x = 12
-    for t, col in zip(temps, cols, strict=True):
-        cv2.rectangle(head, (x, 30), (x + 14, 42), col, -1)
-        label = f"{t - 273.15:.4g} C"
-        cv2.putText(head, label, (x + 18, 41), font, 0.4, TEXT_BGR, 1, cv2.LINE_AA)
-        x += 26 + 8 * len(label)
-    return np.concatenate([head, body])
+        for k, tc in enumerate(temps_c):
+            col = cmap(norm(tc))
+            top.plot(vin, out[k, c], color=col, linewidth=1.2, label=f"{tc:.4g} °C")
+            bot.plot(vin, shift[k], color=col, linewidth=1.2, label=f"{tc:.4g} °C")
+        top.set_title(f"channel {c} ({names[c]})", fontsize="small")
+        bot.set_title(f"shift from {temps_c[ref_index]:.4g} °C", fontsize="small")
+        top.set_ylabel("output [V]")
+        bot.set_ylabel("output shift [mV]")
+        for ax in (top, bot):
+            ax.set_xlabel("input [V]")
+            ax.grid(True, alpha=0.35)
+    sm = ScalarMappable(norm=norm, cmap=cmap)
+    fig.colorbar(sm, ax=axes, label="junction temperature [°C]", shrink=0.8)
+    knobs = knob_text(spec, live)
+    fig.suptitle(f"{spec.title}: DC transfer over temperature, {temps_c[0]:.4g} … "
+                 f"{temps_c[-1]:.4g} °C in {len(temps_c)} steps"
+                 + (f"\n{knobs}" if knobs else ""), fontsize="medium")
+    return fig
 
 
 # ---------------------------------------------------------------------------- the verb
@@ -316,7 +307,7 @@ def run_drift(spec: ChainSpec, *, from_k: float, to_k: float, steps: int = 6, cs
         ``lines()`` gives the text the command line prints.
     """
     from livecurve.media.atomic import atomic_output, check_target
-    from livecurve.outputs.plots import write_png
+    from livecurve.outputs.plots import save_figure, write_png
     temps = temperature_steps(from_k, to_k, steps)
     for p in (csv, png, strip_png):
         if p is not None:
@@ -332,7 +323,7 @@ def run_drift(spec: ChainSpec, *, from_k: float, to_k: float, steps: int = 6, cs
             tmp.write_text(drift_csv_text(vin, out, temps))
         rep.written.append(str(csv))
     if png is not None:
-        write_png(png, drift_figure(vin, out, temps, spec), force=force)
+        save_figure(png, drift_figure(vin, out, temps, spec, live=live), force=force)
         rep.written.append(str(png))
     if strip_png is not None:
         frame = None if frame_source is None else _load_still(frame_source, 480)

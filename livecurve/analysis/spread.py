@@ -42,7 +42,6 @@ from __future__ import annotations
 
 import json as _json
 import math
-import sys
 import time
 from dataclasses import asdict, dataclass, field
 
@@ -52,6 +51,7 @@ from livecurve.circuit.chain import ChainModel
 from livecurve.config.chainfile import ChainSpec
 from livecurve.errors import ConfigError
 from livecurve.outputs.clf import check_live, check_temperature, rgb01_to_volts, volts_to_rgb01
+from livecurve.outputs.progress import Progress
 from livecurve.signal.component import channel_names
 
 DISTRIBUTIONS = ("gauss", "uniform")
@@ -273,33 +273,6 @@ class SpreadResult:
                          self.nominal], axis=1)
 
 
-class _Bar:
-    """Trials done, time per trial and time left, on one stderr line."""
-
-    def __init__(self, total: int, enabled: bool, stream=None):
-        self.total, self.enabled = total, enabled
-        self.stream = stream or sys.stderr
-        self.t0 = time.perf_counter()
-        self.last = 0.0
-
-    def update(self, done: int, force: bool = False) -> None:
-        now = time.perf_counter()
-        if not self.enabled or (not force and now - self.last < 0.25):
-            return
-        self.last = now
-        per = (now - self.t0) / max(done, 1)
-        k = int(30 * done / self.total)
-        self.stream.write(f"\rspread [{'#' * k}{'-' * (30 - k)}] {done}/{self.total} trials  "
-                          f"{per * 1e3:6.1f} ms/trial  {per * (self.total - done):5.0f} s left ")
-        self.stream.flush()
-
-    def close(self) -> None:
-        if self.enabled:
-            self.update(self.total, force=True)
-            self.stream.write("\n")
-            self.stream.flush()
-
-
 def _run_model(model, spec, vin, ramp_v, *, t_kelvin, live):
     """(curves (3, N), ramp outputs (3, S)) of one model."""
     curves = np.empty((3, vin.size))
@@ -418,7 +391,7 @@ def monte_carlo(spec: ChainSpec, *, trials: int, seed: int | None = None,
     ramp_rgb = np.empty((trials, ramp_steps, 3))
     rng = np.random.default_rng(seed)
     keys = [(p.channel, p.stage, p.element, p.quantity) for p in parts]
-    bar = _Bar(trials, progress)
+    bar = Progress(trials, enabled=progress, desc="spread", unit="trial")
     t_loop = time.perf_counter()
     for k in range(trials):
         f = draw_factors(parts, tol, rng, mismatch=mismatch)
@@ -493,40 +466,65 @@ def spread_summary(res: SpreadResult, spec: ChainSpec) -> dict:
     }
 
 
-def spread_png(res: SpreadResult, spec: ChainSpec, *, top: int = 12) -> np.ndarray:
-    """Three band panels (deviation from nominal, mV) and a ranking bar chart; BGR uint8."""
-    import cv2
-
-    from livecurve.outputs.plots import BG_BGR, TEXT_BGR, TRACE_BGR, line_plot
+def spread_figure(res: SpreadResult, spec: ChainSpec, *, top: int = 12,
+                  t_kelvin: float | None = None, live: dict | None = None):
+    """Per channel, the band of output − nominal over the trials (min … max shaded, ±1σ
+    lines, mV, each panel on its own axes), and the sensitivity ranking as horizontal bars
+    (mV).  Returns a matplotlib Figure."""
+    from livecurve.outputs.plots import NEUTRAL, chain_title, channel_style, new_figure
     st = res.channel_stats()
     names = channel_names(spec.space)
-    panels = []
-    for c in range(3):
-        nom = st[c, 3]
-        ys = [(st[c, 0] - nom) * 1e3, (st[c, 1] - nom) * 1e3, -st[c, 2] * 1e3, st[c, 2] * 1e3]
-        panels.append(line_plot(res.vin, ys, labels=["min", "max", "-1 sigma", "+1 sigma"],
-                                title=f"channel {c} ({names[c]}): output - nominal over "
-                                      f"{res.trials} trials", xlabel="input (V)",
-                                ylabel="mV", size=(960, 260)))
     rows = res.ranking[:top]
-    h = 60 + 26 * max(len(rows), 1)
-    img = np.full((h, 960, 3), BG_BGR, dtype=np.uint8)
-    font = cv2.FONT_HERSHEY_SIMPLEX
-    cv2.putText(img, "largest output change with one part at its tolerance limit (mV)",
-                (20, 24), font, 0.55, TEXT_BGR, 1, cv2.LINE_AA)
-    top_mv = max((r["effect_mv"] for r in rows), default=0.0) or 1.0
-    for i, r in enumerate(rows):
-        y = 50 + 26 * i
-        label = r["part"] + ("" if r["quantity"] == "R" else f" {r['quantity']}")
-        cv2.putText(img, label[:28], (20, y + 14), font, 0.45, TEXT_BGR, 1, cv2.LINE_AA)
-        w = int(560 * r["effect_mv"] / top_mv)
-        cv2.rectangle(img, (260, y), (260 + max(w, 1), y + 18),
-                      TRACE_BGR[{"R": 0, "IS": 1, "BF": 2}[r["quantity"]]], -1)
-        cv2.putText(img, f"{r['effect_mv']:.3g}", (270 + w, y + 14), font, 0.45, TEXT_BGR, 1,
-                    cv2.LINE_AA)
-    if not rows:
-        cv2.putText(img, "no parts to rank", (20, 70), font, 0.5, TEXT_BGR, 1, cv2.LINE_AA)
-    return np.concatenate(panels + [img], axis=0)
+    fig, axes = new_figure(960, 1000, nrows=4, gridspec_kw={
+        "height_ratios": [1, 1, 1, max(1.0, 0.12 * len(rows) + 0.4)]})
+    for c in range(3):
+        ax = axes[c]
+        nom = st[c, 3]
+        lo, hi, sd = (st[c, 0] - nom) * 1e3, (st[c, 1] - nom) * 1e3, st[c, 2] * 1e3
+        sty = channel_style(c)
+        ax.fill_between(res.vin, lo, hi, color=sty["color"], alpha=0.25,
+                        label=f"min … max of {res.trials} trials")
+        ax.plot(res.vin, sd, color=sty["color"], linestyle="--", linewidth=1.2,
+                label="+1σ")
+        ax.plot(res.vin, -sd, color=sty["color"], linestyle=":", linewidth=1.2,
+                label="−1σ")
+        ax.axhline(0.0, color=NEUTRAL, linewidth=0.8)
+        ax.set_title(f"channel {c} ({names[c]}): output − nominal", fontsize="small")
+        ax.set_xlabel("input [V]")
+        ax.set_ylabel("deviation [mV]")
+        ax.grid(True, alpha=0.35)
+        ax.legend(loc="best", fontsize="x-small")
+    ax = axes[3]
+    hatches = {"R": "", "IS": "//", "BF": ".."}
+    qcol = {"R": "#1f8a8a", "IS": "#d9822b", "BF": "#7a4fc2"}
+    if rows:
+        labels = [r["part"] + ("" if r["quantity"] == "R" else f" {r['quantity']}")
+                  for r in rows]
+        y = np.arange(len(rows))[::-1]
+        bars = ax.barh(y, [r["effect_mv"] for r in rows],
+                       color=[qcol[r["quantity"]] for r in rows])
+        for bar, r in zip(bars, rows, strict=True):
+            bar.set_hatch(hatches[r["quantity"]])
+        ax.set_yticks(y, labels, fontsize="small")
+        from matplotlib.patches import Patch
+        seen = list(dict.fromkeys(r["quantity"] for r in rows))
+        what = {"R": "resistor", "IS": "junction IS", "BF": "BJT β"}
+        ax.legend(handles=[Patch(facecolor=qcol[q], hatch=hatches[q], label=what[q])
+                           for q in seen], loc="lower right", fontsize="x-small")
+    else:
+        ax.text(0.5, 0.5, "no parts to rank", ha="center", va="center",
+                transform=ax.transAxes)
+        ax.set_yticks([])
+    ax.set_xlabel("largest output change over the sweep [mV]")
+    ax.set_title("one part at its tolerance limit, everything else nominal",
+                 fontsize="small")
+    ax.grid(True, axis="x", alpha=0.35)
+    tol = res.tolerances
+    fig.suptitle(chain_title(spec, f"component spread, {res.trials} trials (seed "
+                             f"{res.seed}), resistors {100 * tol.resistor:g} % "
+                             f"{tol.distribution}", t_kelvin=t_kelvin, live=live),
+                 fontsize="medium")
+    return fig
 
 
 @dataclass
@@ -576,7 +574,8 @@ def run_spread(spec: ChainSpec, *, trials: int, seed: int | None = None, csv=Non
         :func:`spread_summary`: settings, per-channel spread (mV), ΔE00 and cast figures of
         the grey ramp, the sensitivity ranking.
     png
-        Per-channel bands (min/max/±σ of output − nominal, mV) and the ranking bars.
+        Figure (PNG, SVG or PDF by extension): per-channel bands (min/max/±σ of output −
+        nominal, mV) and the ranking bars.
 
     Returns
     -------
@@ -584,7 +583,7 @@ def run_spread(spec: ChainSpec, *, trials: int, seed: int | None = None, csv=Non
         ``lines()`` gives the text the command line prints.
     """
     from livecurve.media.atomic import atomic_output, check_target
-    from livecurve.outputs.plots import write_png
+    from livecurve.outputs.plots import save_figure
     for p in (csv, json, png):
         if p is not None:
             check_target(p, force=force)
@@ -602,6 +601,6 @@ def run_spread(spec: ChainSpec, *, trials: int, seed: int | None = None, csv=Non
             tmp.write_text(_json.dumps(summary, indent=1) + "\n")
         written.append(str(json))
     if png is not None:
-        write_png(png, spread_png(res, spec), force=force)
+        save_figure(png, spread_figure(res, spec, t_kelvin=t_kelvin, live=live), force=force)
         written.append(str(png))
     return SpreadReport(summary, written)

@@ -440,12 +440,3 @@ class AudioFile(ControlSource):
         _interp_zero_outside(self.samples, self.sample_rate_hz, self.gain_v_per_fs, t.ravel(), out)
         return out.reshape(t.shape)
 
-
-def __getattr__(name: str):
-    # ``parse_source`` lives in livecurve.control.spec (it imports this module); it is
-    # reachable from here too, loaded on first use.
-    if name in ("parse_source", "parse_amount", "ACCEPTED_FORMS"):
-        from livecurve.control import spec
-
-        return getattr(spec, name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

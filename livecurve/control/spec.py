@@ -106,7 +106,9 @@ def _int(text: str, key: str) -> int:
     return int(text)
 
 
-def _parse_one(part: str, spec: str, clip_path) -> ControlSource:
+def _parse_one(part: str, spec: str, clip_path, *, dry: bool = False) -> ControlSource | None:
+    """One part of a source text.  With *dry*, files are only probed for an audio stream
+    and devices are not opened; those parts give None."""
     kind, _, rest = part.partition(":")
     kind = kind.strip().lower()
     fields = rest.split(":") if rest else []
@@ -131,8 +133,14 @@ def _parse_one(part: str, spec: str, clip_path) -> ControlSource:
         kw = {"channel": _channel(o.get("channel", "mix"), spec),
               "gain_v_per_fs": parse_amount(o.get("gain", "1"), "V", key=f"{kind} gain")}
         if kind == "file" and fields and ":".join(fields).strip():
+            if dry:
+                from livecurve.media.probe import audio_stream
+                audio_stream(":".join(fields).strip())
+                return None
             return AudioFile(":".join(fields).strip(), **kw)
         if kind == "clip" and not fields:
+            if dry:
+                return None
             if clip_path is None:
                 raise ConfigError("'clip' takes the audio of the clip being processed, "
                                   "but there is no clip (the input is a camera or a still)",
@@ -143,13 +151,17 @@ def _parse_one(part: str, spec: str, clip_path) -> ControlSource:
                                                       "seconds"), spec)
         name = ":".join(fields).strip()
         if name:
-            from livecurve.control.live import LiveInput
-
             channel = _channel(o.get("channel", "mix"), spec)
             channels = _int(o.get("channels", "1"), "device channels")
             if channel != "mix":
                 channels = max(channels, channel + 1)
             rate = parse_amount(o.get("rate", "48000"), "Hz", key="device rate")
+            if dry:  # the options as a device would read them; the device is not opened
+                parse_amount(o.get("seconds", "4"), "s", key="device seconds")
+                parse_amount(o.get("gain", "1"), "V", key="device gain")
+                return None
+            from livecurve.control.live import LiveInput
+
             return LiveInput(int(name) if name.isdigit() else name, rate_hz=rate,
                              channels=channels, channel=channel,
                              seconds=parse_amount(o.get("seconds", "4"), "s",
@@ -196,3 +208,66 @@ def parse_source(spec: str, *, clip_path=None) -> ControlSource:
         raise type(exc)(f"{exc}; in control source {spec!r}; accepted forms: "
                         f"{ACCEPTED_FORMS}") from None
     return sources[0] if len(sources) == 1 else Sum(sources)
+
+
+def check_source(spec: str) -> str:
+    """Check a source text as :func:`parse_source` would read it, without decoding audio
+    or opening devices (for ``livecurve check``).
+
+    Files are probed for an audio stream; ``clip`` is accepted (whether the clip has a
+    soundtrack is known only when a clip is given); ``device`` parts have their options
+    checked but the device is not opened.
+
+    Returns
+    -------
+    str
+        *spec*, stripped.
+
+    Raises
+    ------
+    ConfigError
+        Malformed text (the message lists the accepted forms).
+    MediaError
+        A named file is missing, unreadable or has no audio stream.
+    """
+    if not isinstance(spec, str) or not spec.strip():
+        raise ConfigError(f"empty control source; accepted forms: {ACCEPTED_FORMS}",
+                          key="--control", value=spec)
+    for p in _SPLIT_SUM.split(spec.strip()):
+        try:
+            _parse_one(p.strip(), spec, None, dry=True)
+        except ConfigError as exc:
+            if ACCEPTED_FORMS in str(exc):
+                raise
+            raise type(exc)(f"{exc}; in control source {spec!r}; accepted forms: "
+                            f"{ACCEPTED_FORMS}") from None
+    return spec.strip()
+
+
+def silent_clip(clip_path, *, control: str = "", stream=None) -> bool:
+    """Whether a control block whose default source is the clip's soundtrack must do
+    without it.
+
+    True for no clip (a still, a camera) and for a clip without an audio stream; for the
+    latter a warning goes to stderr saying the knob holds its value.
+
+    Parameters
+    ----------
+    clip_path : str or None
+        The clip being processed.
+    control : str, keyword-only
+        Name of the control block (for the warning).
+    """
+    if clip_path is None:
+        return True
+    from livecurve.errors import MediaError
+    from livecurve.media.probe import audio_stream
+    try:
+        audio_stream(clip_path)
+    except MediaError as exc:
+        import sys
+        out = stream if stream is not None else sys.stderr
+        print(f"livecurve: warning: control '{control}' defaults to the clip's soundtrack, "
+              f"but {exc}; the knob it drives holds its value", file=out)
+        return True
+    return False

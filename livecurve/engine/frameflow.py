@@ -61,7 +61,7 @@ def bind_controls(spec: ChainSpec, items, *, clip_path=None) -> list:
         parameter (the explicit option wins).
     """
     from livecurve.control.mapping import ControlMap
-    from livecurve.control.spec import parse_source
+    from livecurve.control.spec import parse_source, silent_clip
     chosen: dict[str, ControlSpec] = {}
     for item in items or []:
         name, src = _split_item(item, spec)
@@ -78,8 +78,8 @@ def bind_controls(spec: ChainSpec, items, *, clip_path=None) -> list:
     explicit = {c.drives for c in chosen.values()}
     for name, cs in spec.controls.items():
         if name not in chosen and cs.source and cs.drives not in explicit:
-            if _needs_clip(cs.source) and clip_path is None:
-                continue  # a still or camera has no soundtrack: the knob keeps its value
+            if _needs_clip(cs.source) and silent_clip(clip_path, control=name):
+                continue  # no soundtrack (still, camera, silent clip): the knob keeps its value
             chosen[name] = cs
     drives = [c.drives for c in chosen.values()]
     for d in drives:

@@ -54,15 +54,33 @@ def write_curve_csv(path, vin: np.ndarray, vout: np.ndarray, *, force: bool = Tr
         tmp.write_text(buf.getvalue())
 
 
+def curve_figure(vin, vout, spec: ChainSpec, *, t_kelvin: float | None = None,
+                 live: dict | None = None, title: str = ""):
+    """The three channel curves, output volts against input volts (a matplotlib Figure).
+
+    The title records the chain, the junction temperature and the knob settings; the
+    three lines carry exactly *vin* and *vout* (the CSV's numbers).
+    """
+    from livecurve.outputs.plots import chain_title, new_figure, plot_channels
+    fig, ax = new_figure(960, 600)
+    plot_channels(ax, np.asarray(vin), np.asarray(vout), channel_names(spec.space))
+    ax.set_xlabel("input [V] (centred: 0 V is mid-scale)")
+    ax.set_ylabel("output [V]")
+    ax.set_title(title or chain_title(spec, "DC transfer", t_kelvin=t_kelvin, live=live),
+                 fontsize="medium")
+    return fig
+
+
 def write_curve_png(path, vin, vout, spec: ChainSpec, *, title: str = "",
+                    t_kelvin: float | None = None, live: dict | None = None,
                     force: bool = True) -> None:
-    """Plot of the three channel curves, output volts against input volts."""
-    from livecurve.outputs.plots import line_plot, write_png
-    names = channel_names(spec.space)
-    img = line_plot(vin, list(vout), labels=[f"{i}: {n}" for i, n in enumerate(names)],
-                    title=title or f"{spec.title}: DC transfer", xlabel="input (V)",
-                    ylabel="output (V)")
-    write_png(path, img, force=force)
+    """Plot of the three channel curves as PNG, SVG or PDF (by *path*'s extension).
+
+    Pass the *t_kelvin* and *live* the curves were computed with, so the title says so.
+    """
+    from livecurve.outputs.plots import save_figure
+    save_figure(path, curve_figure(vin, vout, spec, t_kelvin=t_kelvin, live=live,
+                                   title=title), force=force)
 
 
 def write_spice(path, spec: ChainSpec, *, t_kelvin: float | None = None,

@@ -1,8 +1,9 @@
 """``livecurve demo``: the built-in demo clip through the demo chains, to a folder.
 
-For each demo chain it writes the processed clip (source | processed, side by side),
-a before/after still, the DC curves (CSV and PNG) and the SPICE deck, then says how to
-open the live preview.  The night-knee chain is driven by the clip's own soundtrack.
+For each demo chain it writes the DC curves (CSV and figure), the SPICE deck, the
+processed clip (source | processed, side by side) and a before/after still under a band
+labelling each half, printing every file as it is written, then says how to open the live
+preview.  The night-knee chain is driven by the clip's own soundtrack.
 """
 
 from __future__ import annotations
@@ -87,8 +88,27 @@ def run_demo(out_dir, *, force: bool = False, quick: bool = False, say=print) ->
     return written
 
 
+#: Height of the label band above the before/after still, pixels.
+LABEL_BAND_PX = 48
+
+
+def label_band(width: int, labels, *, height: int = LABEL_BAND_PX) -> np.ndarray:
+    """A dark band (H, W, 3) uint16 with *labels* written centred over equal parts of it."""
+    import cv2
+    band = np.full((height, width, 3), 0x1C, dtype=np.uint8)  # OpenCV draws text in 8 bits
+    part = width // len(labels)
+    font, scale, thick = cv2.FONT_HERSHEY_SIMPLEX, max(0.5, height / 48), 2
+    for i, text in enumerate(labels):
+        (tw, th), _ = cv2.getTextSize(text, font, scale, thick)
+        x = i * part + max(4, (part - tw) // 2)
+        cv2.putText(band, text, (x, (height + th) // 2), font, scale, (0xE8,) * 3, thick,
+                    cv2.LINE_AA)
+    return band.astype(np.uint16) * 257
+
+
 def _before_after(spec, clip: Path, path: Path, *, at_s: float = 2.0) -> None:
-    """A 16-bit PNG: the frame at *at_s* before (left) and after (right) the chain."""
+    """A 16-bit PNG: the frame at *at_s* before (left) and after (right) the chain, under
+    a band labelling each half.  The pictures themselves are untouched."""
     from livecurve.engine.frameflow import FrameFlow, bind_controls
     from livecurve.media.atomic import write_still
     from livecurve.media.source import open_source
@@ -101,4 +121,7 @@ def _before_after(spec, clip: Path, path: Path, *, at_s: float = 2.0) -> None:
                      out_dtype=np.uint16)
     after = flow.process(fr.rgb, fr.index)
     before = fr.rgb.astype(np.uint16) * 257
-    write_still(path, np.concatenate([before, after], axis=1), force=True)
+    pair = np.concatenate([before, after], axis=1)
+    band = label_band(pair.shape[1], [f"before: source at {at_s:g} s",
+                                      f"after: {spec.title}"])
+    write_still(path, np.concatenate([band, pair], axis=0), force=True)

@@ -19,6 +19,7 @@ import numpy as np
 from livecurve.config.chainfile import ChainSpec
 from livecurve.engine.frameflow import FrameFlow, bind_controls
 from livecurve.errors import OutputError
+from livecurve.outputs.progress import Progress
 
 STILL_EXT = (".png", ".tif", ".tiff")
 
@@ -33,40 +34,6 @@ class RenderReport:
     fps: float
     table_bound_v: float
     flash: str | None = None
-
-
-class Progress:
-    """A one-line progress bar on stderr: frames, fps and time left."""
-
-    def __init__(self, total: int | None, *, enabled: bool = True, stream=None):
-        self.total, self.enabled = total, enabled
-        self.stream = stream or sys.stderr
-        self.t0 = time.perf_counter()
-        self.last = 0.0
-
-    def update(self, done: int, *, force: bool = False) -> None:
-        if not self.enabled:
-            return
-        now = time.perf_counter()
-        if not force and now - self.last < 0.25:
-            return
-        self.last = now
-        el = max(now - self.t0, 1e-9)
-        fps = done / el
-        if self.total:
-            frac = min(done / self.total, 1.0)
-            bar = "#" * int(30 * frac) + "-" * (30 - int(30 * frac))
-            left = (self.total - done) / fps if fps > 0 else float("inf")
-            msg = f"\r[{bar}] {done}/{self.total}  {fps:5.1f} fps  {left:5.0f} s left "
-        else:
-            msg = f"\r{done} frames  {fps:5.1f} fps "
-        self.stream.write(msg)
-        self.stream.flush()
-
-    def close(self) -> None:
-        if self.enabled:
-            self.stream.write("\n")
-            self.stream.flush()
 
 
 def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
@@ -119,7 +86,7 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
         live = list(flow.live_inputs())
         for li in live:
             li.start()
-        bar = Progress(n_total, enabled=progress)
+        bar = Progress(n_total, enabled=progress, desc="render", unit="frame")
         t0 = time.perf_counter()
         done = 0
         if still_out:

@@ -150,7 +150,7 @@ def test_run_drift_writes_pictures(tmp_path):
                     strip_png=tmp_path / "s.png", frame_source=tmp_path / "still.png",
                     points=41)
     fig = cv2.imread(str(tmp_path / "d.png"))
-    assert fig.shape == (48 + 2 * 300, 3 * 480, 3)
+    assert fig.shape == (700, 1440, 3)  # a 14.4 × 7 in figure at 100 dpi
     strip = cv2.imread(str(tmp_path / "s.png"))
     # 4 columns × 2 rows of 480 × 270 tiles (the still scaled to 480 wide)
     assert strip.shape == (8 + 2 * (270 + 26 + 8), 8 + 4 * (480 + 8), 3)
@@ -172,3 +172,28 @@ def test_existing_output_needs_force(tmp_path):
         run_drift(_log_chain(), from_k=273.15, to_k=323.15, steps=3, csv=tmp_path / "d.csv",
                   force=False)
     assert (tmp_path / "d.csv").read_text() == "keep"
+
+
+def test_drift_figure_panels_stand_alone(tmp_path):
+    from livecurve.analysis.drift import drift_curves, drift_figure
+    spec = load_chain(ROOT / "configs" / "night_knee.toml")
+    temps = temperature_steps(273.15, 323.15, 4)
+    vin, out = drift_curves(spec, temps, points=21)
+    fig = drift_figure(vin, out, temps, spec)
+    panels = [ax for ax in fig.axes if ax.get_label() != "<colorbar>"]
+    assert len(panels) == 6
+    for ax in panels:
+        # no panel shares an axis with another: each scales to its own curves
+        assert ax.get_shared_y_axes().get_siblings(ax) == [ax]
+        assert ax.get_shared_x_axes().get_siblings(ax) == [ax]
+        assert "[V]" in ax.get_xlabel() and ("[V]" in ax.get_ylabel()
+                                             or "[mV]" in ax.get_ylabel())
+        assert len(ax.get_lines()) == 4  # one line per temperature
+    # Y′ moves with temperature, Pb/Pr pass through: their panels are scaled separately
+    assert panels[3].get_ylim() != panels[4].get_ylim()
+    # the shift panel of channel 0 shows exactly (out(T) − out(T0)) in mV
+    for k, ln in enumerate(panels[3].get_lines()):
+        np.testing.assert_allclose(ln.get_ydata(), (out[k, 0] - out[0, 0]) * 1e3)
+    assert "°C" in fig.get_suptitle() and "knee_current = 60 µA" in fig.get_suptitle()
+    cbar = [ax for ax in fig.axes if ax.get_label() == "<colorbar>"]
+    assert cbar and "[°C]" in cbar[0].get_ylabel()

@@ -15,6 +15,7 @@ References
 
 from __future__ import annotations
 
+import io
 import json
 import math
 
@@ -194,3 +195,28 @@ def test_bad_runs(kw, key):
 def test_bad_tolerances(tol, key):
     with pytest.raises(ConfigError, match=key):
         monte_carlo(_gain_chain(), trials=2, tolerances=tol)
+
+
+def test_spread_figure_draws_the_csv_and_ranking(tmp_path):
+    from livecurve.analysis.spread import spread_csv_text, spread_figure
+    spec = _demo("shadow_crush")
+    res = monte_carlo(spec, trials=6, seed=3, points=21)
+    fig = spread_figure(res, spec)
+    assert len(fig.axes) == 4
+    data = np.loadtxt(io.StringIO(spread_csv_text(res)), delimiter=",", skiprows=1)
+    for c in range(3):
+        ax = fig.axes[c]
+        plus, minus = ax.get_lines()[:2]
+        # +1σ / −1σ lines are the CSV's std column in mV
+        np.testing.assert_allclose(plus.get_ydata(), data[:, 4 + 4 * c] * 1e3, rtol=1e-7,
+                                   atol=1e-9)
+        np.testing.assert_allclose(minus.get_ydata(), -data[:, 4 + 4 * c] * 1e3, rtol=1e-7,
+                                   atol=1e-9)
+        assert ax.get_ylabel() == "deviation [mV]" and ax.get_xlabel() == "input [V]"
+    bars = fig.axes[3].patches
+    top = res.ranking[:12]
+    assert len(bars) == len(top)
+    # bars are drawn top-down in ranking order
+    widths = [b.get_width() for b in sorted(bars, key=lambda b: -b.get_y())]
+    np.testing.assert_allclose(widths, [r["effect_mv"] for r in top])
+    assert "6 trials" in fig.get_suptitle() and "seed 3" in fig.get_suptitle()

@@ -150,7 +150,7 @@ def test_each_row_sees_the_knob_at_its_own_time(knee_flow):
     knob = mid + half * _sine(_row_times(), 1000.0, 0.5)
     np.testing.assert_allclose(flow.last_controls["knee_current"], knob, rtol=1e-9, atol=0)
     # the circuit's answer for each row, at the row's right end (the line filter has settled:
-    # 1900 pixels ≫ the 9.5 MHz closed-loop pole's 1.2-pixel time constant)
+    # 1900 pixels ≫ the 11.4 MHz closed-loop pole's 1.0-pixel time constant)
     model = ChainModel(spec)
     rows = np.arange(0, 1080, 9)
     ref = np.array([model.transfer(0, [_grey_y_v()], live={"knee_current": c},

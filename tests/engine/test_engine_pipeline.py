@@ -173,8 +173,8 @@ def test_set_live_rebuilds_and_changes_the_output():
     # Pb/Pr carry no stage: untouched, bit for bit
     np.testing.assert_array_equal(after[1:], planes[1:])
     assert np.max(np.abs(after[0] - before[0])) > 10e-3  # a clearly visible change
-    # at the right end of each line (100 pixels = 1.3 µs flat, > 70 time constants of the
-    # 9.5 MHz closed-loop pole) the new output is the solver's at 100 µA
+    # at the right end of each line (100 pixels = 1.3 µs flat, > 90 time constants of the
+    # 11.4 MHz closed-loop pole) the new output is the solver's at 100 µA
     ref = ChainModel(spec).transfer(0, ramp[-1:].astype(np.float64),
                                     live={"knee_current": 100e-6}, t_kelvin=eng.state.t_kelvin)
     assert abs(after[0, 0, -1] - ref[0]) <= eng.worst_table_err_v + F32_SLACK_V
