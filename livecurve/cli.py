@@ -122,13 +122,14 @@ def cmd_curve(args) -> int:
         from livecurve.outputs.steps import write_steps
         write_steps(spec, csv=args.csv, png=args.png, force=args.force)
         return 0
-    vin, vout = curves.curves(spec, points=args.points, t_kelvin=_temp(args),
-                              live=_live(spec, args))
+    t_kelvin, live = _temp(args), _live(spec, args)
+    vin, vout = curves.curves(spec, points=args.points, t_kelvin=t_kelvin, live=live)
     if args.csv:
         curves.write_curve_csv(args.csv, vin, vout, force=args.force)
         print(f"wrote {args.csv} ({len(vin)} points)")
     if args.png:
-        curves.write_curve_png(args.png, vin, vout, spec, force=args.force)
+        curves.write_curve_png(args.png, vin, vout, spec, t_kelvin=t_kelvin, live=live,
+                               force=args.force)
         print(f"wrote {args.png}")
     return 0
 
@@ -287,8 +288,8 @@ def _verb_curve(sub):
                    help="write the curves as CSV (volts: input_v,out0_v,out1_v,out2_v), "
                         "e.g. --csv knee.csv")
     c.add_argument("--png", metavar="OUT.png",
-                   help="write a plot of the curves (output volts against input volts), "
-                        "e.g. --png knee.png")
+                   help="write a plot of the curves (output volts against input volts); "
+                        ".png, .svg or .pdf by the extension, e.g. --png knee.png")
     _points_arg(c)
     _temp_arg(c, "the chain's ambient")
     _set_arg(c)
