@@ -154,6 +154,34 @@ def cmd_spread(args) -> int:
     return 0
 
 
+def cmd_measure(args) -> int:
+    from livecurve.analysis.measure_report import report_lines, run_measure
+    spec = _chain(args.chain)
+    rep = run_measure(spec, fmt=args.format, t_kelvin=_temp(args), live=_live(spec, args),
+                      json_out=args.json, png_out=args.png, force=args.force, sweep=args.sweep)
+    print("\n".join(report_lines(rep)))
+    for out in (args.json, args.png):
+        if out:
+            print(f"wrote {out}")
+    return 0
+
+
+def _add_measure(sub) -> None:
+    c = sub.add_parser("measure", help="test signals through a chain: response, pulse, "
+                                       "linearity, timing and levels per channel")
+    c.add_argument("chain")
+    c.add_argument("--format", help="video format to measure at (default: the chain's, "
+                                    "else 1080p30)")
+    c.add_argument("--temp-c", help="junction temperature (default: the chain's ambient)")
+    c.add_argument("--set", action="append", metavar="NAME=VALUE", help="set a live parameter")
+    c.add_argument("--json", metavar="OUT.json", help="write the report as JSON")
+    c.add_argument("--png", metavar="OUT.png", help="write a sheet of plots")
+    c.add_argument("--force", action="store_true", help="overwrite the outputs")
+    c.add_argument("--sweep", metavar="NAME=FROM:TO:STEPS",
+                   help="measure over a live parameter's range, e.g. contrast=10k:47k:5")
+    c.set_defaults(func=cmd_measure)
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="livecurve",
@@ -248,6 +276,8 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--force", action="store_true")
     c.add_argument("--quick", action="store_true", help="one chain, two seconds")
     c.set_defaults(func=cmd_demo)
+
+    _add_measure(sub)
     return p
 
 
