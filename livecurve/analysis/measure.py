@@ -13,10 +13,11 @@ Figures (definitions; sources in ``docs/test-signals.md``)
   input (mV).
 * **Swept response**: rows of sines at whole DFT bins of the last 3/4 of the line (so harmonics
   and the mean fall on other bins and do not leak), 0.1 V amplitude about 0 V.  H(f) = output
-  bin / input bin; ``gain_db`` is relative to the lowest tone.  In steady state this is exactly
+  bin / input bin; ``gain_db`` is relative to |H| at 0 Hz, extrapolated in f² from the two
+  lowest tones.  In steady state this is exactly
   the response of the discrete filters at the pixel clock.
-* **−3 dB frequency**: first crossing of −3 dB, refined on every DFT bin around it, linear in
-  dB between bins; None when the response stays above −3 dB up to the last tone.
+* **−3 dB frequency**: first crossing of half power (−3.01 dB), refined on every DFT bin around
+  it, linear in dB between bins; None when the response stays above it up to the last tone.
 * **Low-frequency delay**: −Δφ/Δω between the two lowest tones (group delay), ns.  Sample n of
   the output is the circuit's output at the *end* of pixel n (engine convention) while the
   input is held over the pixel, so a stage with analog group delay τ measures τ − T/2
@@ -61,6 +62,8 @@ N_TONES = 48
 TONE_AMP_V = 0.1
 #: Settling band, fraction of the bar.
 SETTLE_FRACTION = 0.01
+#: The "−3 dB" point is the half-power point, −10·log10(2) = −3.0103 dB.
+HALF_POWER_DB = -10.0 * math.log10(2.0)
 #: Format used when neither the chain nor the command names one.
 DEFAULT_FORMAT = "1080p30"
 
@@ -199,9 +202,9 @@ def measure(bench: Bench, *, limits: Limits | None = None) -> dict:
     chans = []
     for ch in range(3):
         h = _bin_response(x[ch, :nt], y[ch, :nt], bins, start)
-        rel = h / h[0]
-        gain_db = 20 * np.log10(np.maximum(np.abs(rel), 1e-12))
-        f3 = _f3db(bench, ch, freqs, gain_db, h[0], start)
+        h0 = _dc_magnitude(freqs[:2], np.abs(h[:2]))
+        gain_db = 20 * np.log10(np.maximum(np.abs(h) / h0, 1e-12))
+        f3 = _f3db(bench, ch, freqs, gain_db, h0, start)
         ph = np.unwrap(np.angle(h))
         delay_s = -(ph[1] - ph[0]) / (2 * math.pi * (freqs[1] - freqs[0]))
         lin = linearity(x[ch, i_stair], y[ch, i_stair], w)
@@ -239,6 +242,14 @@ def measure(bench: Bench, *, limits: Limits | None = None) -> dict:
             "passed": all(ck["pass"] for c in chans for ck in c["checks"].values())}
 
 
+def _dc_magnitude(f: np.ndarray, mag: np.ndarray) -> float:
+    """|H| extrapolated to 0 Hz from two low tones: |H(f)|² = A + B·f² (even in f; exact to
+    order f⁴ for any rational response)."""
+    m2 = mag ** 2
+    a = (f[1] ** 2 * m2[0] - f[0] ** 2 * m2[1]) / (f[1] ** 2 - f[0] ** 2)
+    return float(math.sqrt(a)) if a > 0 else float(mag[0])
+
+
 def _trace(x, y, fmt: VideoFormat, width: int, tp: float) -> dict:
     """The pulse-and-bar line for the sheet, with the windows worth looking at (ns)."""
     lay = patterns.pulse_layout(fmt, width)
@@ -252,7 +263,7 @@ def _trace(x, y, fmt: VideoFormat, width: int, tp: float) -> dict:
 
 def _f3db(bench, ch, freqs, gain_db, h_ref, start) -> float | None:
     """First −3 dB crossing, refined on every bin between the bracketing tones."""
-    below = np.flatnonzero(gain_db <= -3.0)
+    below = np.flatnonzero(gain_db <= HALF_POWER_DB)
     if below.size == 0:
         return None
     j = int(below[0])
@@ -266,11 +277,11 @@ def _f3db(bench, ch, freqs, gain_db, h_ref, start) -> float | None:
     rows, ff = _tone_rows(w, fine, tp, nwin)
     xs = np.stack([rows, rows, rows])
     ys = run_lines(bench, xs)
-    g = 20 * np.log10(np.abs(_bin_response(xs[ch], ys[ch], fine, start) / h_ref))
-    k = int(np.flatnonzero(g <= -3.0)[0]) if np.any(g <= -3.0) else len(g) - 1
+    g = 20 * np.log10(np.abs(_bin_response(xs[ch], ys[ch], fine, start)) / h_ref)
+    k = int(np.flatnonzero(g <= HALF_POWER_DB)[0]) if np.any(g <= HALF_POWER_DB) else len(g) - 1
     if k == 0:
         return float(ff[0])
-    return float(ff[k - 1] + (-3.0 - g[k - 1]) / (g[k] - g[k - 1]) * (ff[k] - ff[k - 1]))
+    return float(ff[k - 1] + (HALF_POWER_DB - g[k - 1]) / (g[k] - g[k - 1]) * (ff[k] - ff[k - 1]))
 
 
 def linearity(x: np.ndarray, y: np.ndarray, width: int, steps: int = 10) -> dict:
