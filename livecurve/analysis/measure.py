@@ -206,7 +206,7 @@ def measure(bench: Bench, *, limits: Limits | None = None) -> dict:
         gain_db = 20 * np.log10(np.maximum(np.abs(h) / h0, 1e-12))
         f3 = _f3db(bench, ch, freqs, gain_db, h0, start)
         ph = np.unwrap(np.angle(h))
-        delay_s = -(ph[1] - ph[0]) / (2 * math.pi * (freqs[1] - freqs[0]))
+        delay_s = -(ph[1] - ph[0]) / (2 * math.pi * (freqs[1] - freqs[0])) + 0.0
         lin = linearity(x[ch, i_stair], y[ch, i_stair], w)
         mb = multiburst(x[ch, i_burst], y[ch, i_burst], f, w, tp)
         pb = pulse_bar(x[ch, i_pulse], y[ch, i_pulse], f, w, tp)
@@ -234,12 +234,30 @@ def measure(bench: Bench, *, limits: Limits | None = None) -> dict:
         c["gain_vs_ch0_pct"] = 100.0 * (c["dc_gain"] / g0 - 1.0) if g0 else math.nan
         c["checks"] = checks(c, lim, f)
     eng = bench.flow.engine
-    return {"chain": spec.path, "title": spec.title, "format": f.name,
+    return {"notes": _notes(bench, start), "chain": spec.path, "title": spec.title,
+            "format": f.name,
             "pixel_clock_hz": f.pixel_clock_hz, "space": spec.space, "standard": std,
             "t_kelvin": eng.state.t_kelvin, "live": dict(eng.state.live),
             "nominal_bandwidth_hz": patterns.nominal_bandwidth_hz(f),
             "channels": chans,
             "passed": all(ck["pass"] for c in chans for ck in c["checks"].values())}
+
+
+def _notes(bench: Bench, start: int) -> list[str]:
+    """Warnings about the measurement itself (a stage too slow for the line, slewing)."""
+    notes = []
+    for ch in range(3):
+        for run in bench.flow.engine.runs[ch]:
+            lf = run.line_filter
+            if lf is None:
+                continue
+            if lf.memory_samples(tol=1e-6) > start:
+                notes.append(f"channel {ch}: stage '{run.stages[-1].id}' remembers more than "
+                             f"{start} samples; the tones' transients may bias the response")
+            if lf.rate_limited:
+                notes.append(f"channel {ch}: stage '{run.stages[-1].id}' is slew-limited; "
+                             "large signals (multiburst, pulse, bar) may slew")
+    return notes
 
 
 def _dc_magnitude(f: np.ndarray, mag: np.ndarray) -> float:

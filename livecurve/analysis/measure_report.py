@@ -111,6 +111,7 @@ def report_lines(rep: dict) -> list[str]:
                              f"{sw['channels'][ch]['nonlinearity_pct'][i]:.2f} %"
                              for ch in range(3))
             out.append(f"  {v:.6g}: {figs}")
+    out += [f"note: {n}" for n in rep.get("notes", [])]
     out.append("overall: " + ("pass" if rep["passed"] else "FAIL (see checks above)"))
     return out
 

@@ -85,6 +85,28 @@ def test_single_pole_3db_and_delay_match_theory(pole_report):
     assert c["delay_ns"] == pytest.approx(tau_theory_ns, rel=0.01)   # measured: 0.4 % off
 
 
+def test_single_pole_at_sd_clock():
+    """At 13.5 MHz (ITU-R BT.601) a 1 MHz pole: f_c·T is larger, the same discrete law holds."""
+    rep = measure(make_bench(_linear_chain(gbw="2MHz"), fmt="576i"))
+    c = rep["channels"][0]
+    t = 1 / 13.5e6
+    a = math.exp(-2 * math.pi * 1e6 * t)
+    f3 = math.acos((1 + a * a - 2 * (1 - a) ** 2) / (2 * a)) / (2 * math.pi * t)
+    assert rep["format"] == "576i" and rep["pixel_clock_hz"] == 13.5e6
+    assert c["f_3db_hz"] == pytest.approx(f3, rel=1e-3)          # measured: 2e-4 off (bins)
+    # T·a/(1 − a) = T·(1/x − 1/2 + x/12 − …), x = 2π·f_c·T = 0.47 here: the first-order
+    # 1/(2π·f_c) − T/2 = 122.1 ns misses the x/12 term (+2.9 ns); the exact discrete delay is
+    # 125.0 ns at 0 Hz; the measurement, −Δφ/Δω between tones at 50 and 75 kHz, reads 124.35
+    # ns (a pole's group delay falls as 1/(1 + (f/f_c)²)).  Same phase difference, exact:
+    f_lo = np.array([p["freq_hz"] for p in c["response"][:2]])
+    ph = np.unwrap(np.angle((1 - a) / (1 - a * np.exp(-2j * np.pi * f_lo * t))))
+    tau = -(ph[1] - ph[0]) / (2 * np.pi * (f_lo[1] - f_lo[0]))
+    assert c["delay_ns"] == pytest.approx(1e9 * tau, rel=1e-4)
+    assert c["delay_ns"] == pytest.approx(1e9 * t * a / (1 - a), rel=0.01)
+    assert c["delay_ns"] == pytest.approx(1e9 * (1 / (2 * math.pi * 1e6) - t / 2), rel=0.03)
+    assert [p["freq_hz"] for p in c["multiburst"]][-1] == 5.75e6   # BT.601 passband
+
+
 def test_swept_response_equals_scipy(pole_report):
     """Single pole and pole + resonance against scipy.signal on the same ZOH discrete filter."""
     fc = 3e6
