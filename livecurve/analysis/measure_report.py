@@ -122,6 +122,15 @@ def _num(v) -> str:
     return f"{v:.4g}" if isinstance(v, float) else str(v)
 
 
+def _si_prefix(x: float) -> tuple[float, str]:
+    """(scale, prefix) putting *x* between 1 and 1000 (µ for 1e-6, k for 1e3, …)."""
+    for scale, prefix in ((1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"),
+                          (1e-6, "µ"), (1e-9, "n"), (1e-12, "p")):
+        if x >= scale:
+            return scale, prefix
+    return 1.0, ""
+
+
 def write_sheet(path, rep: dict, *, force: bool = False) -> Path:
     """A PNG sheet: swept responses and multiburst, the 2T pulse, the bar's edge, staircase
     step errors and (with a sweep) figures against the knob; axes with units, title with
@@ -169,8 +178,9 @@ def write_sheet(path, rep: dict, *, force: bool = False) -> Path:
     ax[3].set(xlabel="staircase step", ylabel="step height − mean (%)",
               title="linearity (10-step staircase)")
     if sweep:
-        v = sweep["values"]
-        unit = sweep["unit"] or "—"
+        scale, prefix = _si_prefix(max(abs(x) for x in sweep["values"]))
+        v = [x / scale for x in sweep["values"]]
+        unit = f"{prefix}{sweep['unit']}" if sweep["unit"] else "—"
         for ch, (col, ls) in enumerate(zip(colours, styles, strict=True)):
             f3 = [math.nan if x is None else x / 1e6 for x in sweep["channels"][ch]["f_3db_hz"]]
             ax[4].plot(v, f3, "o", color=col, ls=ls, label=f"ch {ch}")

@@ -15,6 +15,7 @@ from __future__ import annotations
 import json
 import math
 
+import cv2
 import numpy as np
 import pytest
 from scipy import signal
@@ -254,7 +255,9 @@ def test_cli_json_png_sweep_and_output_policy(tmp_path):
     assert data["channels"][0]["checks"]["f_3db_hz"]["pass"]
     assert data["t_kelvin"] == pytest.approx(313.15)
     assert data["sweep"]["values"] == [5e3, 12.5e3, 20e3]
-    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    sheet = cv2.imread(str(png))
+    assert sheet is not None and sheet.shape[:2] == (840, 1500)    # 2 × 3 panels at 100 dpi
+    assert sheet.std() > 10                                          # not a blank page
     assert "channel 0" in r.stdout and "-3 dB 3.02 MHz" in r.stdout
     before = js.read_bytes()
     r = run_cli("measure", chain, "--json", js)
