@@ -22,6 +22,8 @@ Figures (definitions; sources in ``docs/test-signals.md``)
   the output is the circuit's output at the *end* of pixel n (engine convention) while the
   input is held over the pixel, so a stage with analog group delay τ measures τ − T/2
   (T = 1 / pixel clock): ZOH adds T/2, reading at the end removes T.
+* **Pulse delay**: centroid of the output pulse minus that of the input pulse; for a linear
+  chain this is its group delay at 0 Hz (Σ n·h[n] / Σ h[n]), a second reading of the delay.
 * **Multiburst**: each packet's amplitude (least-squares sine at its frequency over the packet's
   steady middle) relative to the flag's (the low-frequency square wave), output over input, dB.
 * **Pulse and bar**: 2T sine-squared pulse and a bar with 2T raised-cosine edges (T from the
@@ -218,6 +220,7 @@ def measure(bench: Bench, *, limits: Limits | None = None) -> dict:
             "response": [{"freq_hz": float(a), "gain_db": float(b)}
                          for a, b in zip(freqs, gain_db, strict=True)],
             "multiburst": mb,
+            "pulse_delay_ns": pb["pulse_delay_ns"],
             "pulse_bar_pct": pb["pulse_bar_pct"], "overshoot_pct": pb["overshoot_pct"],
             "ringing_pct": pb["ringing_pct"], "settling_ns": pb["settling_ns"],
             "step_ratios": lin["step_ratios"], "nonlinearity_pct": lin["nonlinearity_pct"],
@@ -356,6 +359,17 @@ def pulse_bar(x, y, fmt: VideoFormat, width: int, tp: float) -> dict:
 
     bx, barx, pkx = heights(x)
     by, bary, pky = heights(y)
+    # centroid of the pulse from just before it to just before the bar: out − in is the
+    # group delay at 0 Hz of any linear filter (Σ n·h[n] / Σ h[n])
+    lo = lay.pulse_centre - int(math.ceil(lay.had_s / tp)) - 8
+    hi = b0 - int(math.ceil(lay.edge_s / tp)) - 2
+    n = np.arange(lo, hi)
+
+    def centroid(s, base):
+        wgt = s[lo:hi] - base
+        return float((n * wgt).sum() / wgt.sum())
+
+    pulse_delay = (centroid(y, by) - centroid(x, bx)) * tp
     amp = bary - by
     ratio = (pky / amp) / (pkx / (barx - bx)) if amp else math.nan
     yn = (y - by) / amp if amp else np.zeros_like(y)
@@ -372,7 +386,8 @@ def pulse_bar(x, y, fmt: VideoFormat, width: int, tp: float) -> dict:
         return int(idx[-1]) + 1 if idx.size else 0
 
     settle = (last_out(yn) - last_out(xn)) * tp
-    return {"pulse_bar_pct": 100.0 * ratio, "overshoot_pct": 100.0 * over,
+    return {"pulse_delay_ns": pulse_delay * 1e9, "pulse_bar_pct": 100.0 * ratio,
+            "overshoot_pct": 100.0 * over,
             "ringing_pct": 100.0 * ring, "settling_ns": max(settle, 0.0) * 1e9}
 
 

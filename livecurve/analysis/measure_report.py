@@ -90,7 +90,8 @@ def report_lines(rep: dict) -> list[str]:
         out += [
             f"channel {c['channel']} ({c['name']}):",
             f"  DC gain {c['dc_gain']:.4f}, offset {c['dc_offset_mv']:+.1f} mV; "
-            f"-3 dB {_fmt_hz(c['f_3db_hz'])}; LF delay {c['delay_ns']:.2f} ns",
+            f"-3 dB {_fmt_hz(c['f_3db_hz'])}; LF delay {c['delay_ns']:.2f} ns (pulse "
+            f"centroid {c['pulse_delay_ns']:.2f} ns)",
             f"  multiburst dB ({mhz} MHz): {mb}",
             f"  pulse/bar {c['pulse_bar_pct']:.1f} %, overshoot {c['overshoot_pct']:.2f} %, "
             f"ringing {c['ringing_pct']:.2f} %, settling {c['settling_ns']:.1f} ns",

@@ -82,6 +82,8 @@ def test_single_pole_3db_and_delay_match_theory(pole_report):
     ph = np.unwrap(np.angle((1 - a) / (1 - a * z)))
     tau_discrete = -(ph[1] - ph[0]) / (2 * np.pi * (f_lo[1] - f_lo[0]))
     assert c["delay_ns"] == pytest.approx(tau_discrete * 1e9, rel=1e-4)
+    # The pulse centroid moves by the group delay at 0 Hz, T·a/(1 − a) for this filter.
+    assert c["pulse_delay_ns"] == pytest.approx(1e9 * T_PIX * a / (1 - a), rel=1e-4)
     tau_theory_ns = 1e9 / (2 * math.pi * fc) - 0.5 * T_PIX * 1e9   # 53.05 − 6.73 ns
     assert c["delay_ns"] == pytest.approx(tau_theory_ns, rel=0.01)   # measured: 0.4 % off
 
