@@ -172,12 +172,14 @@ def measure(bench: Bench, *, limits: Limits | None = None) -> dict:
     Returns
     -------
     dict
-        ``format``, ``pixel_clock_hz``, ``t_kelvin``, ``live``, ``channels`` (one dict per
-        channel: ``channel``, ``name``, ``dc_gain``, ``dc_offset_mv``, ``f_3db_hz``,
+        ``notes``, ``chain``, ``title``, ``format``, ``pixel_clock_hz``, ``space``,
+        ``standard``, ``t_kelvin``, ``live``, ``nominal_bandwidth_hz``, ``channels`` (one dict
+        per channel: ``channel``, ``name``, ``dc_gain``, ``dc_offset_mv``, ``f_3db_hz``,
         ``delay_ns``, ``response`` [{freq_hz, gain_db}], ``multiburst`` [{freq_hz, gain_db}],
-        ``pulse_bar_pct``, ``overshoot_pct``, ``ringing_pct``, ``settling_ns``,
+        ``pulse_delay_ns``, ``pulse_bar_pct``, ``overshoot_pct``, ``ringing_pct``, ``settling_ns``,
         ``step_ratios``, ``nonlinearity_pct``, ``max_deviation_pct``, ``peak_mv``,
-        ``trough_mv``, ``delay_vs_ch0_ns``, ``gain_vs_ch0_pct``, ``checks``), ``passed``.
+        ``trough_mv``, ``legal_mv``, ``delay_vs_ch0_ns``, ``gain_vs_ch0_pct``, ``checks``
+        {figure: {value, limit, pass}}, and ``pulse``, the traces for the sheet), ``passed``.
     """
     lim = limits or Limits()
     f, w, tp = bench.fmt, bench.width, bench.pixel_period_s
