@@ -197,6 +197,9 @@ def line(name: str, fmt, *, width: int | None = None, standard: str = "bt709",
             y[lo:hi] += a * np.sin(2 * math.pi * fk * (t[lo:hi] - t[lo]))
         return _grey(y)
     if name == "pulse":
+        if not 0.5 <= had_t <= 8.0:
+            raise ConfigError("pulse half-amplitude duration is 0.5 … 8 T (1T and 2T are the "
+                              "usual ones)", key="had", value=had_t)
         lay = pulse_layout(f, w, had_t=had_t)
         y = sin2_pulse(t, lay.pulse_centre * tp, lay.had_s)
         y += raised_edge(t, lay.bar_start_s, lay.edge_s)

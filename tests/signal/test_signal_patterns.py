@@ -119,7 +119,8 @@ def test_pattern_source_frames_and_errors():
         rgb = src.read().rgb
     assert rgb.dtype == np.uint16 and set(np.unique(rgb)) == {0, 65535}
     for bad in ("pattern:bogus", "pattern:bars:amp=80", "pattern:bars:colour=1",
-                "pattern:flat:level=x", "pattern:bars:format=999p"):
+                "pattern:flat:level=x", "pattern:bars:format=999p", "pattern:pulse:had=0",
+                "pattern:flat:frames=0", "pattern:sweep:to=40MHz", "pattern:staircase:steps=7"):
         with pytest.raises(MediaError, match="pattern:"):
             PatternSource(bad)
     assert parse_pattern("pattern:sweep:to=20MHz")[1] == {"to_hz": 20e6}
