@@ -227,6 +227,19 @@ def cmd_spread(args) -> int:
     return 0
 
 
+def cmd_measure(args) -> int:
+    from livecurve.analysis.measure_report import report_lines, run_measure
+    _outputs_free(args.json, args.png, force=args.force)
+    spec = _chain(args.chain)
+    rep = run_measure(spec, fmt=args.format, t_kelvin=_temp(args), live=_live(spec, args),
+                      json_out=args.json, png_out=args.png, force=args.force, sweep=args.sweep)
+    print("\n".join(report_lines(rep)))
+    for out in (args.json, args.png):
+        if out:
+            print(f"wrote {out}")
+    return 0
+
+
 # ---- the parser ---------------------------------------------------------------------------------
 def add_verb(sub, name: str, help_text: str, examples: str, func):
     """A sub-command with a one-line help, an ``examples:`` epilog kept as written, and the
@@ -437,9 +450,32 @@ def _verb_demo(sub):
     c.add_argument("--quick", action="store_true", help="one chain, two seconds")
 
 
+def _verb_measure(sub):
+    c = add_verb(sub, "measure", "test signals through a chain: response, pulse, linearity, "
+                 "timing and levels per channel", """
+        livecurve measure configs/night_knee.toml
+        livecurve measure configs/film_shoulder.toml --json m.json --png m.png --temp-c 40
+        livecurve measure configs/night_knee.toml --sweep knee_current=50uA:200uA:5 --png k.png
+        """, cmd_measure)
+    _chain_arg(c)
+    c.add_argument("--format", metavar="FORMAT",
+                   help="video format whose pixel clock and bandwidth the signals use, "
+                        "e.g. --format 720p60 (default: the chain's, else 1080p30)")
+    _temp_arg(c, "the chain's ambient")
+    _set_arg(c)
+    c.add_argument("--json", metavar="OUT.json",
+                   help="write the report as JSON (a 'channels' list), e.g. --json m.json")
+    c.add_argument("--png", metavar="OUT.png",
+                   help="write a sheet of plots; .png, .svg or .pdf, e.g. --png m.png")
+    c.add_argument("--sweep", metavar="NAME=FROM:TO:STEPS",
+                   help="measure at STEPS values of a live parameter over FROM…TO (in its "
+                        "unit), e.g. --sweep knee_current=50uA:200uA:5")
+    _force_arg(c, "the JSON/PNG")
+
+
 #: Functions that add one verb each to the sub-command set, in the order ``--help`` lists them.
 VERBS = [_verb_check, _verb_curve, _verb_export, _verb_render, _verb_preview, _verb_devices,
-         _verb_drift, _verb_spread, _verb_demo]
+         _verb_drift, _verb_spread, _verb_measure, _verb_demo]
 
 
 def build_parser() -> argparse.ArgumentParser:

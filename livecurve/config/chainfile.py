@@ -29,7 +29,7 @@ BJT_KEYS = {"is": ("is_a", "A"), "bf": ("bf", ""), "br": ("br", ""), "nf": ("nf"
 DYNAMICS_KEYS = {"gbw": "Hz", "noise_gain": "", "slew": "V/us", "f_ring": "Hz", "zeta": "",
                  "ro": "ohm", "cl": "F"}
 TOP_KEYS = {"title", "notes", "space", "standard", "ambient", "format", "supply", "opamp",
-            "converter", "stage", "channel", "live", "sweep", "thermal", "control"}
+            "converter", "stage", "channel", "live", "sweep", "thermal", "control", "limits"}
 _ID = re.compile(r"^[a-z][a-z0-9_]*$")
 #: Chain files are hand-written text; anything larger is refused before parsing.
 MAX_CHAIN_BYTES = 4 << 20

@@ -401,6 +401,9 @@ def open_source(spec, *, start_s: float = 0.0, duration_s: float | None = None,
         from livecurve.media.camera import open_camera
         index = spec if isinstance(spec, int) else _camera_index(spec)
         return open_camera(index)
+    if isinstance(spec, str) and spec.startswith("pattern:") and not os.path.exists(spec):
+        from livecurve.media.pattern import PatternSource  # generated test signals
+        return PatternSource(spec, start_s=start_s, duration_s=duration_s, loop=loop)
     info = probe(spec, sequence_fps=sequence_fps)
     if info.kind == "clip":
         return ClipSource(info, start_s=start_s, duration_s=duration_s, loop=loop,
