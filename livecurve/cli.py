@@ -149,9 +149,64 @@ def cmd_spread(args) -> int:
     out.mkdir(parents=True, exist_ok=True)
     rep = run_spread(spec, trials=args.trials, seed=args.seed, csv=out / "spread.csv",
                      json=out / "spread.json", png=out / "spread.png",
-                     progress=not args.quiet)
+                     progress=not args.quiet, scheduler=_spread_scheduler(args))
     print("\n".join(rep.lines()))
     return 0
+
+
+def _spread_scheduler(args):
+    """``spread``: the --scheduler address, a local cluster for large --trials, else None."""
+    from livecurve.analysis.spread import LOCAL_CLUSTER_TRIALS
+    from livecurve.outputs.cluster import scheduler_address
+    addr = scheduler_address(args.scheduler)
+    if addr is None and args.trials >= LOCAL_CLUSTER_TRIALS:
+        return "local"
+    return addr
+
+
+def cmd_batch(args) -> int:
+    from livecurve.outputs.batch import plan_batch
+    from livecurve.outputs.batchrun import run_batch
+    from livecurve.outputs.cluster import scheduler_address
+    items, specs = plan_batch(args.chain, args.source, sets=args.set or (),
+                              temps=args.temp_c or (), codec=args.codec,
+                              segment_s=args.segment_s)
+    rep = run_batch(items, specs, args.out, codec=args.codec, force=args.force,
+                    scheduler=scheduler_address(args.scheduler), progress=not args.quiet,
+                    n_workers=args.workers)
+    print("\n".join(rep.lines()))
+    return 1 if rep.failed else 0
+
+
+def _add_batch(sub) -> None:
+    """The ``batch`` verb (see livecurve.outputs.batch and docs/batch.md)."""
+    c = sub.add_parser("batch", help="render every source through every chain and setting, "
+                                     "on Dask (a local cluster or --scheduler)")
+    c.add_argument("--chain", action="append", required=True, metavar="CHAIN.toml",
+                   help="a chain file (repeat for more)")
+    c.add_argument("--source", action="append", required=True, metavar="CLIP_OR_STILL",
+                   help="a clip, still or image sequence (repeat for more)")
+    c.add_argument("--set", action="append", metavar="NAME=V1,V2,...",
+                   help="values of a live parameter to try (repeat for more knobs; every "
+                        "combination is rendered)")
+    c.add_argument("--temp-c", action="append", metavar="T1,T2,...",
+                   help="junction temperatures to try (default: each chain's ambient)")
+    c.add_argument("--codec", choices=("h264", "ffv1"), default="h264",
+                   help="clip outputs: h264 (.mp4, default) or lossless ffv1 (.mkv)")
+    c.add_argument("--out", required=True, metavar="DIR",
+                   help="output folder, on a path every worker sees")
+    c.add_argument("--force", action="store_true",
+                   help="render items whose output already exists")
+    c.add_argument("--scheduler", metavar="tcp://HOST:PORT",
+                   help="an existing Dask scheduler (default $LIVECURVE_SCHEDULER, else a "
+                        "local cluster in this process)")
+    c.add_argument("--workers", type=int, default=None,
+                   help="local cluster: worker processes (default one per core)")
+    c.add_argument("--segment-s", type=float, default=None,
+                   help="clips longer than this many seconds are split into segments "
+                        "rendered in parallel (default 30)")
+    c.add_argument("--quiet", action="store_true", help="no progress lines")
+    c.set_defaults(func=cmd_batch)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -241,7 +296,12 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--seed", type=int, default=0)
     c.add_argument("--out", default="spread")
     c.add_argument("--quiet", action="store_true")
+    c.add_argument("--scheduler", metavar="tcp://HOST:PORT",
+                   help="run the trials on this Dask scheduler (default $LIVECURVE_SCHEDULER; "
+                        "a local cluster from 5000 trials)")
     c.set_defaults(func=cmd_spread)
+
+    _add_batch(sub)
 
     c = sub.add_parser("demo", help="render the built-in demo clip through the demo chains")
     c.add_argument("--out", default="livecurve-demo", help="folder for the results")
