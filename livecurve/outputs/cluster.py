@@ -4,8 +4,9 @@ With no address (neither ``--scheduler`` nor the ``LIVECURVE_SCHEDULER`` environ
 variable) a :class:`distributed.LocalCluster` is started on 127.0.0.1 with one worker
 *process* per core (fewer when there is less work) and one task thread each; each worker's
 numba thread pool gets ``cores // workers`` threads (``NUMBA_NUM_THREADS``), so the workers
-together never ask for more threads than the machine has.  No dashboard is served.  The
-cluster is shut down when the block ends.
+together never ask for more threads than the machine has.  Everything listens on 127.0.0.1
+only (the scheduler's status page on a free port).  The cluster is shut down when the block
+ends.
 
 With an address the client connects to that scheduler and leaves its workers alone.
 """
@@ -76,7 +77,7 @@ def dask_client(scheduler: str | None = None, *, n_workers: int | None = None,
         n = max(1, min(n, tasks))
     env = {"NUMBA_NUM_THREADS": str(max(1, cores() // n))}
     cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                           host="127.0.0.1", dashboard_address=None,
+                           host="127.0.0.1", dashboard_address="127.0.0.1:0",
                            silence_logs=logging.ERROR, env=env)
     try:
         client = Client(cluster, set_as_default=False)

@@ -35,15 +35,23 @@ CHAIN = str(chain_path("film_shoulder"))
 
 
 def make_clip(path, *, seconds: float, size: str = "48x32", fps: int = 25,
-              audio: bool = True, vcodec: str = "libx264") -> str:
-    """A small test clip drawn by the bundled ffmpeg (testsrc2 pattern, a sine tone)."""
-    args = ["-v", "error", "-y", "-f", "lavfi", "-i",
-            f"testsrc2=size={size}:rate={fps}:duration={seconds}"]
+              audio: bool = True, vcodec: str = "libx264", scale: str | None = None,
+              ramp: bool = False) -> str:
+    """A small test clip drawn by the bundled ffmpeg (testsrc2 pattern, a sine tone).
+
+    ``ramp=True``: a flat grey whose level rises 4 codes a frame (ffmpeg's geq filter,
+    ``N`` = frame number), so every frame is told apart by its mean.
+    """
+    pattern = (f"color=c=black:size={size}:rate={fps}:duration={seconds},"
+               "geq=lum='16+4*N':cb=128:cr=128" if ramp
+               else f"testsrc2=size={size}:rate={fps}:duration={seconds}")
+    args = ["-v", "error", "-y", "-f", "lavfi", "-i", pattern]
     if audio:
         args += ["-f", "lavfi", "-i", f"sine=frequency=440:sample_rate=48000:"
                                       f"duration={seconds + 0.5}", "-c:a", "aac"]
     args += ["-c:v", vcodec, "-g", "12", "-pix_fmt",
-             "yuv420p" if vcodec == "libx264" else "yuv444p", "-t", str(seconds), str(path)]
+             "yuv420p" if vcodec == "libx264" else "yuv444p", "-t", str(seconds)]
+    args += (["-s", scale] if scale else []) + [str(path)]
     res = _ffmpeg.run(args)
     assert res.returncode == 0, res.stderr.decode()
     return str(path)
@@ -92,7 +100,8 @@ def media(tmp_path_factory):
     d = tmp_path_factory.mktemp("media")
     return {"clip": make_clip(d / "clip.mp4", seconds=1.2),
             "still": make_still(d / "card.png"),
-            "long": make_clip(d / "long.mp4", seconds=2.0)}
+            "long": make_clip(d / "long.mp4", seconds=2.0),
+            "ramp": make_clip(d / "ramp.mp4", seconds=2.0, ramp=True)}
 
 
 # ---------------------------------------------------------------------------- no cluster
@@ -209,7 +218,7 @@ def test_split_and_join_equals_a_whole_render(cluster, media, tmp_path):
                 "--segment-s", "0.6", "--out", out, "--scheduler", cluster.address)
     assert r.returncode == 0, r.stderr
     (row,) = read_rows(out)
-    assert row["status"] == "done" and int(row["segments"]) == 3 and row["frames"] == "50"
+    assert row["status"] == "done" and int(row["segments"]) == 4 and row["frames"] == "50"
     whole = tmp_path / "whole.mkv"
     render(load_chain(CHAIN), media["long"], whole, codec="ffv1", progress=False)
     joined = out / row["output"]
@@ -223,18 +232,20 @@ def test_split_and_join_equals_a_whole_render(cluster, media, tmp_path):
 
 def test_h264_split_has_every_frame_in_order(cluster, media, tmp_path):
     out = tmp_path / "h264"
-    r = run_cli("batch", "--chain", CHAIN, "--source", media["long"], "--segment-s", "0.6",
+    r = run_cli("batch", "--chain", CHAIN, "--source", media["ramp"], "--segment-s", "0.6",
                 "--out", out, "--scheduler", cluster.address)
     assert r.returncode == 0, r.stderr
     (row,) = read_rows(out)
-    got = frames_of(out / row["output"]).astype(np.int32)
+    assert int(row["segments"]) == 4
+    got = frames_of(out / row["output"]).astype(np.float64).mean(axis=(1, 2, 3))
     ref = tmp_path / "ref.mkv"
-    render(load_chain(CHAIN), media["long"], ref, codec="ffv1", progress=False)
-    want = (frames_of(ref) >> 8).astype(np.int32)
-    assert got.shape == want.shape
-    # each decoded frame is nearest to the frame of the same index (testsrc2 moves)
-    err = np.abs(got[:, None] - want[None, :]).mean(axis=(2, 3, 4))
-    assert np.array_equal(err.argmin(axis=1), np.arange(len(got)))
+    render(load_chain(CHAIN), media["ramp"], ref, codec="ffv1", progress=False)
+    want = (frames_of(ref) / 257.0).mean(axis=(1, 2, 3))
+    assert got.shape == want.shape == (50,)
+    assert np.all(np.diff(want) > 0.5)  # the chain keeps the ramp's frames apart
+    # each decoded frame is nearest to the reference frame of the same index
+    err = np.abs(got[:, None] - want[None, :])
+    assert np.array_equal(err.argmin(axis=1), np.arange(50))
 
 
 def test_killed_worker_does_not_stop_the_batch(cluster, media, tmp_path):
@@ -277,8 +288,8 @@ def test_killed_worker_does_not_stop_the_batch(cluster, media, tmp_path):
 
 
 def test_embedded_cluster_and_a_failed_item(media, tmp_path):
-    odd = make_clip(tmp_path / "odd.mkv", seconds=0.4, size="33x24", audio=False,
-                    vcodec="ffv1")
+    odd = make_clip(tmp_path / "odd.mkv", seconds=0.4, audio=False, vcodec="ffv1",
+                    scale="33x25")
     out = tmp_path / "embedded"
     r = run_cli("batch", "--chain", CHAIN, "--source", media["clip"], "--source", odd,
                 "--out", out, "--workers", "2", env={**os.environ, "NUMBA_NUM_THREADS": "1"})
