@@ -298,7 +298,7 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("--quiet", action="store_true")
     c.add_argument("--scheduler", metavar="tcp://HOST:PORT",
                    help="run the trials on this Dask scheduler (default $LIVECURVE_SCHEDULER; "
-                        "a local cluster from 5000 trials)")
+                        "a local cluster from 20000 trials)")
     c.set_defaults(func=cmd_spread)
 
     _add_batch(sub)

@@ -59,7 +59,7 @@ MAX_TRIALS = 1_000_000
 #: Trials per block: the unit of work sent to a Dask worker, each with its own random stream.
 TRIALS_PER_BLOCK = 50
 #: From this many trials the ``spread`` command runs them on a local Dask cluster.
-LOCAL_CLUSTER_TRIALS = 5000
+LOCAL_CLUSTER_TRIALS = 20000
 
 
 @dataclass(frozen=True)
