@@ -34,9 +34,11 @@ render in parallel and are joined without re-encoding (:mod:`livecurve.outputs.s
 The index and the contact sheet
 -------------------------------
 ``index.csv`` (RFC 4180 quoting) has one row per item: ``source, chain, settings, temp_c,
-output, status, seconds, frames, segments, worker, error``.  ``worker`` is the address of
-the Dask worker(s) that made the output.  ``contact_sheet.png`` shows one frame of every
-item (the middle frame of a clip) with its output name.
+output, status, seconds, frames, segments, worker, flash, error``.  ``flash`` is the
+photosensitive-flash estimate of a clip rendered whole with a control bound (ITU-R BT.1702
+estimate, as ``render`` prints it); split clips and stills leave it empty.  ``worker`` is
+the address of the Dask worker(s) that made the output.  ``contact_sheet.png`` shows one
+frame of every item (the middle frame of a clip) with its output name.
 """
 
 from __future__ import annotations
@@ -55,7 +57,7 @@ from livecurve.errors import ConfigError, LivecurveError, MediaError
 
 #: Columns of ``index.csv``.
 INDEX_COLUMNS = ("source", "chain", "settings", "temp_c", "output", "status", "seconds",
-                 "frames", "segments", "worker", "error")
+                 "frames", "segments", "worker", "flash", "error")
 #: Hidden folder (inside the output folder) where segments are rendered before the join.
 WORK_DIR = ".livecurve-segments"
 MAX_NAME = 150
@@ -292,11 +294,11 @@ def render_item(item: Item, spec, out_dir: str, *, codec: str, force: bool) -> d
         rep = render(apply_settings(spec, item.settings), item.source, final,
                      codec=None if item.kind == "still" else codec, force=force,
                      progress=False, t_kelvin=item.t_kelvin)
-        frames, err, status = rep.frames, "", "done"
+        frames, err, status, flash = rep.frames, "", "done", rep.flash or ""
     except Exception as exc:  # one item's failure must not stop the batch
-        frames, err, status = 0, _error_text(exc), "failed"
+        frames, err, status, flash = 0, _error_text(exc), "failed", ""
     return {"status": status, "seconds": time.perf_counter() - t0, "frames": frames,
-            "worker": worker, "error": err}
+            "worker": worker, "error": err, "flash": flash}
 
 
 def render_piece(item: Item, spec, k: int, work: str, *, codec: str) -> dict:

@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import io
 import math
+import os
 import secrets
 import shutil
 import sys
@@ -87,6 +88,8 @@ class BatchReport:
                f"{count['present']} already present, {count['failed']} failed"]
         out += [f"  failed {r['output']}: {r['error']}" for r in self.rows
                 if r["status"] == "failed"]
+        out += [f"  {r['output']}: {r['flash']}" for r in self.rows
+                if r.get("flash") and not r["flash"].startswith("flash check: ok")]
         out.append(f"  wrote {self.index}")
         if self.sheet:
             out.append(f"  wrote {self.sheet}")
@@ -118,6 +121,8 @@ def run_batch(items: list[Item], specs: dict, out_dir, *, codec: str = "h264",
         raise OutputError(f"{out}: cannot create the output folder: {exc.strerror}") from exc
     if not out.is_dir():
         raise OutputError(f"{out}: is not a folder")
+    if not os.access(out, os.W_OK | os.X_OK):
+        raise OutputError(f"{out}: the output folder is not writable")
     old = read_index(out / INDEX_NAME)
     results: dict[int, dict] = {}
     todo = []
@@ -126,7 +131,8 @@ def run_batch(items: list[Item], specs: dict, out_dir, *, codec: str = "h264",
             prev = old.get(it.output, {})
             results[i] = {"status": "present", "seconds": prev.get("seconds", ""),
                           "frames": prev.get("frames", it.frames),
-                          "worker": prev.get("worker", ""), "error": ""}
+                          "worker": prev.get("worker", ""), "flash": prev.get("flash", ""),
+                          "error": ""}
         else:
             todo.append(i)
     total_frames = sum(items[i].frames for i in todo)
@@ -185,7 +191,7 @@ def _run(client, items, specs, todo, out: Path, codec, force, results, bar) -> N
                 split_counted[i] = split_counted.get(i, 0) + res["frames"]
         else:
             results[i] = {k: res.get(k, "") for k in ("status", "seconds", "frames", "worker",
-                                                      "error")}
+                                                      "flash", "error")}
             items_done += 1
             failed += res["status"] == "failed"
             if not items[i].segments and res["status"] != "failed":
@@ -220,7 +226,8 @@ def _row(it: Item, res: dict | None) -> dict:
             "output": it.output, "status": res["status"],
             "seconds": f"{float(sec):.3f}" if sec not in ("", None) else "",
             "frames": res.get("frames", ""), "segments": len(it.segments) or 1,
-            "worker": res.get("worker", ""), "error": res.get("error", "")}
+            "worker": res.get("worker", ""), "flash": res.get("flash", ""),
+            "error": res.get("error", "")}
 
 
 # ---------------------------------------------------------------------------- the index
