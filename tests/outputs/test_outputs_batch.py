@@ -301,5 +301,8 @@ def test_embedded_cluster_and_a_failed_item(media, tmp_path):
     assert bad["status"] == "failed" and "even" in bad["error"]
     assert not (out / bad["output"]).exists()
     assert "1 failed" in r.stdout
+    # progress from the futures: plain lines, items and frames (stderr is a pipe here)
+    assert "batch: 2/2 items, 30/40 frames, 1 failed" in r.stderr.replace("\r", "\n")
+    assert "\r" not in r.stderr
     assert sorted(p.name for p in out.iterdir()) == sorted(
         [rows[media["clip"]]["output"], "index.csv", "contact_sheet.png"])
