@@ -16,6 +16,7 @@ from __future__ import annotations
 import contextlib
 import logging
 import os
+import socket
 
 from livecurve.errors import ConfigError
 
@@ -42,6 +43,30 @@ def cores() -> int:
         return max(1, os.cpu_count() or 1)
 
 
+def _refused(address: str) -> None:
+    """Fail at once when nothing listens at a ``tcp://HOST:PORT`` address.
+
+    Dask's client retries a refused connection until its timeout; a closed port is an
+    input error that can be named straight away.
+    """
+    rest = address.split("://", 1)[1] if "://" in address else address
+    if not address.startswith(("tcp://", "localhost:", "127.")) and "://" in address:
+        return  # other transports (tls://, inproc://): leave to Dask
+    host, _, port = rest.rpartition(":")
+    try:
+        port_n = int(port)
+    except ValueError as exc:
+        raise ConfigError("a scheduler address looks like tcp://HOST:PORT",
+                          key="--scheduler", value=address) from exc
+    try:
+        socket.create_connection((host.strip("[]"), port_n), timeout=CONNECT_TIMEOUT_S).close()
+    except ConnectionRefusedError as exc:
+        raise ConfigError("no Dask scheduler listens there (connection refused)",
+                          key="--scheduler", value=address) from exc
+    except OSError:
+        pass  # unreachable or slow: let Dask's client try and report
+
+
 @contextlib.contextmanager
 def dask_client(scheduler: str | None = None, *, n_workers: int | None = None,
                 tasks: int | None = None):
@@ -62,6 +87,7 @@ def dask_client(scheduler: str | None = None, *, n_workers: int | None = None,
         raise ConfigError("the Python package 'distributed' (Dask) is not installed",
                           key="--scheduler", value=scheduler or "local") from exc
     if scheduler:
+        _refused(scheduler)
         try:
             client = Client(scheduler, timeout=CONNECT_TIMEOUT_S, set_as_default=False)
         except (OSError, TimeoutError, ValueError) as exc:

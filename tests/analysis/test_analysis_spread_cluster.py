@@ -68,3 +68,11 @@ def test_spread_command_on_the_cluster(cluster, tmp_path):
     c = run_cli("spread", chain, "--trials", 3, "--scheduler", "nonsense", "--out",
                 tmp_path / "c")
     assert c.returncode == 2 and "nonsense" in c.stderr
+
+
+def test_scheduler_from_the_environment(tmp_path):
+    import os
+    env = {**os.environ, "LIVECURVE_SCHEDULER": "nonsense"}
+    r = run_cli("spread", chain_path("shadow_crush"), "--trials", 3, "--out", tmp_path / "s",
+                env=env)
+    assert r.returncode == 2 and "nonsense" in r.stderr and "--scheduler" in r.stderr

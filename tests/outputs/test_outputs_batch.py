@@ -167,6 +167,9 @@ def test_bad_grid_input_names_file_and_key(tmp_path, media):
     r = run_cli("batch", "--chain", CHAIN, "--source", media["still"], "--out", tmp_path / "o",
                 "--scheduler", "tcp://127.0.0.1:9")
     assert r.returncode == 2 and "tcp://127.0.0.1:9" in r.stderr
+    r = run_cli("batch", "--chain", CHAIN, "--source", media["still"], "--out", tmp_path / "o",
+                env={**os.environ, "LIVECURVE_SCHEDULER": "tcp://127.0.0.1:9"})
+    assert r.returncode == 2 and "tcp://127.0.0.1:9" in r.stderr
     assert not (tmp_path / "o" / "index.csv").exists()
 
 
