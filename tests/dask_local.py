@@ -110,7 +110,7 @@ class LocalDask:
             if p is None:
                 continue
             try:
-                p.wait(timeout=20)
+                p.wait(timeout=5)
             except subprocess.TimeoutExpired:
                 p.kill()
                 p.wait(timeout=10)
