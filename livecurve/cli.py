@@ -222,9 +222,34 @@ def cmd_spread(args) -> int:
     with atomic_folder(args.out, SPREAD_FILES, force=args.force) as tmp:
         rep = run_spread(spec, trials=args.trials, seed=args.seed, csv=tmp / SPREAD_FILES[0],
                          json=tmp / SPREAD_FILES[1], png=tmp / SPREAD_FILES[2],
-                         progress=not args.quiet, force=True)
+                         progress=not args.quiet, force=True,
+                         scheduler=_spread_scheduler(args))
     print("\n".join(line.replace(str(tmp), str(args.out)) for line in rep.lines()))
     return 0
+
+
+def _spread_scheduler(args):
+    """``spread``: the --scheduler address, a local cluster for large --trials, else None."""
+    from livecurve.analysis.spread import LOCAL_CLUSTER_TRIALS
+    from livecurve.outputs.cluster import scheduler_address
+    addr = scheduler_address(args.scheduler)
+    if addr is None and args.trials >= LOCAL_CLUSTER_TRIALS:
+        return "local"
+    return addr
+
+
+def cmd_batch(args) -> int:
+    from livecurve.outputs.batch import plan_batch
+    from livecurve.outputs.batchrun import run_batch
+    from livecurve.outputs.cluster import scheduler_address
+    items, specs = plan_batch(args.chain, args.source, sets=args.set or (),
+                              temps=args.temp_c or (), codec=args.codec,
+                              segment_s=args.segment_s)
+    rep = run_batch(items, specs, args.out, codec=args.codec, force=args.force,
+                    scheduler=scheduler_address(args.scheduler), progress=not args.quiet,
+                    n_workers=args.workers)
+    print("\n".join(rep.lines()))
+    return 1 if rep.failed else 0
 
 
 def cmd_measure(args) -> int:
@@ -435,7 +460,51 @@ def _verb_spread(sub):
                    help="folder for spread.csv, spread.json and spread.png, e.g. --out "
                         "spread/ (default spread)")
     c.add_argument("--quiet", action="store_true", help="no progress bar")
+    c.add_argument("--scheduler", metavar="tcp://HOST:PORT",
+                   help="run the trials on this Dask scheduler, e.g. --scheduler "
+                        "tcp://127.0.0.1:8786 (default $LIVECURVE_SCHEDULER; a local cluster "
+                        "from 20000 trials)")
     _force_arg(c, "those files")
+
+
+def _verb_batch(sub):
+    """The ``batch`` verb (see livecurve.outputs.batch and docs/batch.md)."""
+    c = add_verb(sub, "batch", "render every source through every chain and setting, on Dask "
+                 "(a local cluster or --scheduler)", """
+        livecurve batch --chain configs/night_knee.toml --chain configs/film_shoulder.toml \\
+            --source clips/demo.mp4 --set knee_current=50uA,120uA --out variants/
+        livecurve batch --chain configs/shadow_crush.toml --source clips/demo.mp4 \\
+            --temp-c 0,25,50 --codec ffv1 --scheduler tcp://127.0.0.1:8786 --out hot/
+        """, cmd_batch)
+    c.add_argument("--chain", action="append", required=True, metavar="CHAIN.toml",
+                   help="a chain file (repeat for more), e.g. --chain configs/night_knee.toml")
+    c.add_argument("--source", action="append", required=True, metavar="CLIP_OR_STILL",
+                   help="a clip, still, image sequence or pattern:NAME (repeat for more), "
+                        "e.g. --source clips/demo.mp4")
+    c.add_argument("--set", action="append", metavar="NAME=V1,V2,...",
+                   help="values of a live parameter to try, in its unit (repeat for more "
+                        "knobs; every combination is rendered), e.g. --set "
+                        "knee_current=50uA,120uA")
+    c.add_argument("--temp-c", action="append", metavar="T1,T2,...",
+                   help="junction temperatures to try, °C, e.g. --temp-c 0,25,50 (default: "
+                        "each chain's ambient)")
+    c.add_argument("--codec", choices=("h264", "ffv1"), default="h264",
+                   help="clip outputs: h264 (.mp4, default) or lossless ffv1 (.mkv)")
+    c.add_argument("--out", required=True, metavar="DIR",
+                   help="output folder, on a path every worker sees, e.g. --out variants/")
+    c.add_argument("--force", action="store_true",
+                   help="render again items whose output already exists (default: a rerun "
+                        "skips complete items)")
+    c.add_argument("--scheduler", metavar="tcp://HOST:PORT",
+                   help="an existing Dask scheduler, e.g. --scheduler tcp://127.0.0.1:8786 "
+                        "(default $LIVECURVE_SCHEDULER, else a local cluster in this process)")
+    c.add_argument("--workers", type=_int_in(1, 256, "--workers"), default=None, metavar="N",
+                   help="local cluster: worker processes, e.g. --workers 2 (default one per "
+                        "core)")
+    c.add_argument("--segment-s", type=float, default=None, metavar="SECONDS",
+                   help="clips longer than this are split into segments rendered in "
+                        "parallel, seconds, e.g. --segment-s 10 (default 30)")
+    c.add_argument("--quiet", action="store_true", help="no progress lines")
 
 
 def _verb_demo(sub):
@@ -475,7 +544,8 @@ def _verb_measure(sub):
 
 #: Functions that add one verb each to the sub-command set, in the order ``--help`` lists them.
 VERBS = [_verb_check, _verb_curve, _verb_export, _verb_render, _verb_preview, _verb_devices,
-         _verb_drift, _verb_spread, _verb_measure, _verb_demo]
+         _verb_drift, _verb_spread, _verb_measure, _verb_batch,
+         _verb_demo]
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -56,6 +56,10 @@ from livecurve.signal.component import channel_names
 
 DISTRIBUTIONS = ("gauss", "uniform")
 MAX_TRIALS = 1_000_000
+#: Trials per block: the unit of work sent to a Dask worker, each with its own random stream.
+TRIALS_PER_BLOCK = 50
+#: From this many trials the ``spread`` command runs them on a local Dask cluster.
+LOCAL_CLUSTER_TRIALS = 20000
 
 
 @dataclass(frozen=True)
@@ -284,6 +288,69 @@ def _run_model(model, spec, vin, ramp_v, *, t_kelvin, live):
     return curves, ramp
 
 
+@dataclass(frozen=True)
+class _BlockJob:
+    """What every block of trials needs (sent once per block to a worker)."""
+
+    spec: ChainSpec
+    parts: list
+    tol: Tolerances
+    seed: int
+    vin: np.ndarray
+    ramp_v: np.ndarray
+    t_kelvin: float
+    live: dict
+    mismatch: bool
+
+
+def block_seed(seed: int, block: int) -> np.random.SeedSequence:
+    """Random stream of trial block *block* of a run with *seed* (numpy SeedSequence)."""
+    return np.random.SeedSequence(int(seed), spawn_key=(int(block),))
+
+
+def trial_block(job: _BlockJob, block: int, n: int) -> tuple[int, np.ndarray, np.ndarray]:
+    """Trials ``block·TRIALS_PER_BLOCK`` … ``+ n - 1``: (first trial, curves, ramp R′G′B′)."""
+    rng = np.random.default_rng(block_seed(job.seed, block))
+    model = PartsModel(job.spec)
+    keys = [(p.channel, p.stage, p.element, p.quantity) for p in job.parts]
+    std = job.spec.standard_or_default
+    curves = np.empty((n, 3, job.vin.size))
+    ramp_rgb = np.empty((n, job.ramp_v.shape[1], 3))
+    for k in range(n):
+        f = draw_factors(job.parts, job.tol, rng, mismatch=job.mismatch)
+        model.factors = dict(zip(keys, f, strict=True))
+        curves[k], rv = _run_model(model, job.spec, job.vin, job.ramp_v,
+                                   t_kelvin=job.t_kelvin, live=job.live)
+        ramp_rgb[k] = volts_to_rgb01(rv, job.spec, standard=std)
+    return block * TRIALS_PER_BLOCK, curves, ramp_rgb
+
+
+def _run_blocks(job: _BlockJob, trials: int, scheduler):
+    """Yield (first trial, curves, ramp) of every block, here or on Dask, in any order."""
+    blocks = [(b, min(TRIALS_PER_BLOCK, trials - b * TRIALS_PER_BLOCK))
+              for b in range(-(-trials // TRIALS_PER_BLOCK))]
+    if scheduler is None:
+        for b, n in blocks:
+            yield trial_block(job, b, n)
+        return
+    from livecurve.outputs.cluster import dask_client
+    if hasattr(scheduler, "submit"):
+        yield from _on_client(scheduler, job, blocks)
+        return
+    with dask_client(None if scheduler == "local" else scheduler,
+                     tasks=len(blocks)) as client:
+        yield from _on_client(client, job, blocks)
+
+
+def _on_client(client, job: _BlockJob, blocks):
+    from distributed import as_completed
+    shared = client.scatter(job, broadcast=True)
+    futures = [client.submit(trial_block, shared, b, n, pure=False) for b, n in blocks]
+    for fut in as_completed(futures, loop=client.loop):
+        yield fut.result()
+        fut.release()
+
+
 def _cast(lab: np.ndarray) -> np.ndarray:
     grey = np.zeros_like(lab)
     grey[..., 0] = lab[..., 0]
@@ -333,7 +400,7 @@ def monte_carlo(spec: ChainSpec, *, trials: int, seed: int | None = None,
                 tolerances: Tolerances | None = None, points: int = 101,
                 ramp_steps: int = 21, t_kelvin: float | None = None, live: dict | None = None,
                 mismatch: bool = True, progress: bool = False,
-                rank: bool = True) -> SpreadResult:
+                rank: bool = True, scheduler=None) -> SpreadResult:
     """Monte Carlo over part tolerances.
 
     Parameters
@@ -359,6 +426,12 @@ def monte_carlo(spec: ChainSpec, *, trials: int, seed: int | None = None,
         Progress bar on stderr.
     rank : bool
         Also run the one-at-a-time sensitivity ranking.
+    scheduler : None, "local", str or distributed.Client
+        Where the trials run, in blocks of :data:`TRIALS_PER_BLOCK`: in this process
+        (None), on a local Dask cluster started for the run (``"local"``), on the scheduler
+        at an address (``tcp://HOST:PORT``) or through a connected client.  Block *b* draws
+        from its own stream, ``SeedSequence(seed, spawn_key=(b,))``, so the result is the
+        same wherever and on however many workers the blocks run.
 
     Returns
     -------
@@ -389,16 +462,14 @@ def monte_carlo(spec: ChainSpec, *, trials: int, seed: int | None = None,
     rgb_nom = volts_to_rgb01(ramp_nom_v, spec, standard=std)
     curves = np.empty((trials, 3, points))
     ramp_rgb = np.empty((trials, ramp_steps, 3))
-    rng = np.random.default_rng(seed)
-    keys = [(p.channel, p.stage, p.element, p.quantity) for p in parts]
     bar = Progress(trials, enabled=progress, desc="spread", unit="trial")
+    done = 0
     t_loop = time.perf_counter()
-    for k in range(trials):
-        f = draw_factors(parts, tol, rng, mismatch=mismatch)
-        model.factors = dict(zip(keys, f, strict=True))
-        curves[k], rv = _run_model(model, spec, vin, ramp_v, t_kelvin=t, live=lv)
-        ramp_rgb[k] = volts_to_rgb01(rv, spec, standard=std)
-        bar.update(k + 1)
+    job = _BlockJob(spec, parts, tol, int(seed), vin, ramp_v, t, lv, mismatch)
+    for lo, c, r in _run_blocks(job, trials, scheduler):
+        curves[lo:lo + c.shape[0]], ramp_rgb[lo:lo + c.shape[0]] = c, r
+        done += c.shape[0]
+        bar.update(done)
     loop_s = time.perf_counter() - t_loop
     bar.close()
     lab_nom = grey_lab(rgb_nom)
@@ -563,7 +634,7 @@ def run_spread(spec: ChainSpec, *, trials: int, seed: int | None = None, csv=Non
                png=None, progress: bool = True, tolerances: Tolerances | None = None,
                points: int = 101, ramp_steps: int = 21, t_kelvin: float | None = None,
                live: dict | None = None, mismatch: bool = True,
-               force: bool = True) -> SpreadReport:
+               force: bool = True, scheduler=None) -> SpreadReport:
     """``livecurve spread``: Monte Carlo, then the CSV, JSON and PNG asked for.
 
     Outputs
@@ -589,7 +660,7 @@ def run_spread(spec: ChainSpec, *, trials: int, seed: int | None = None, csv=Non
             check_target(p, force=force)
     res = monte_carlo(spec, trials=trials, seed=seed, tolerances=tolerances, points=points,
                       ramp_steps=ramp_steps, t_kelvin=t_kelvin, live=live, mismatch=mismatch,
-                      progress=progress)
+                      progress=progress, scheduler=scheduler)
     summary = spread_summary(res, spec)
     written = []
     if csv is not None:
