@@ -151,7 +151,7 @@ def test_failure_mid_way_publishes_nothing(tmp_path, monkeypatch, capsys):
     def broken(*a, **k):
         raise RuntimeError("plot went wrong")
 
-    monkeypatch.setattr(spread, "spread_png", broken)
+    monkeypatch.setattr(spread, "spread_figure", broken)
     out = tmp_path / "sp"
     rc = cli.main(["spread", str(SHOULDER), "--trials", "2", "--quiet", "--out", str(out)])
     assert rc == 3
