@@ -95,8 +95,7 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
             else:
                 net.bjt(ename, f[0], f[1], f[2], m)
         else:
-            net.opamp(ename, f[0], f[1], f[2], a_ol=op.a_ol, v_pos_v=op.v_pos_v,
-                      v_neg_v=op.v_neg_v, headroom_v=op.headroom_v)
+            net.opamp(ename, f[0], f[1], f[2], **op.element_kw())
     nodes = net.node_names()
     if "out" not in nodes:
         raise ConfigError("the netlist has no node 'out'", path=path, key=key)
