@@ -43,6 +43,19 @@ GROUND = ("0", "gnd", "GND")
 KNEE_V = 0.2
 
 
+def opamp_slope(drive_v: float, hi_v: float, lo_v: float, knee_v: float = KNEE_V) -> float:
+    """d(opamp_law)/d(drive) at one drive value: 1 inside, falling linearly to 0 across
+    each knee, 0 beyond."""
+    d = float(drive_v)
+    if d >= hi_v + knee_v or d <= lo_v - knee_v:
+        return 0.0
+    if d > hi_v - knee_v:
+        return 1.0 - (d - (hi_v - knee_v)) / (2.0 * knee_v)
+    if d < lo_v + knee_v:
+        return 1.0 - ((lo_v + knee_v) - d) / (2.0 * knee_v)
+    return 1.0
+
+
 def opamp_law(drive_v, hi_v: float, lo_v: float, knee_v: float = KNEE_V):
     """The op-amp's static output for an open-loop drive ``A·(v+ − v− + Vos)`` (volts).
 
@@ -87,6 +100,7 @@ class Compiled:
     n_unknowns: int
     node_index: dict
     out_index: int
+    element_rows: dict = field(default_factory=dict)  # OA / L element name -> its row
 
 
 class Netlist:
@@ -208,6 +222,7 @@ class Netlist:
         if "in" not in self.node_names() or "out" not in self.node_names():
             raise ConfigError("a stage netlist needs nodes 'in' and 'out'", key=self.name)
         rows: list[tuple[int, tuple[int, int, int, int], list[float], bool]] = []
+        erows: dict[str, int] = {}
         vt = thermal_voltage(t_kelvin)
         for el in self.elements:
             if el.kind == "R":
@@ -267,12 +282,14 @@ class Netlist:
                 for term, ib in ((p, x["ib_plus"]), (n_, x["ib_minus"])):
                     if ib != 0.0:
                         rows.append((_s.K_I, (node(term), -1, -1, -1), [ib], False))
+                erows[el.name] = len(rows)
                 rows.append((_s.K_OA, (node(p), node(n_), node(o), -1),
                              [el.value, x["hi"], x["lo"], x["knee"], x["vos"]], True))
             elif el.kind == "C":
                 pass  # open at DC
             elif el.kind == "L":
                 # a short at DC: a 0 V source whose branch current is the inductor current
+                erows[el.name] = len(rows)
                 rows.append((_s.K_V, (node(el.nodes[0]), node(el.nodes[1]), -1, -1), [0.0],
                              True))
             elif el.kind == "E":
@@ -290,7 +307,7 @@ class Netlist:
                 branch[k] = n_nodes + nb_
                 nb_ += 1
         return Compiled(kinds, nodes, params, branch, n_nodes, n_nodes + nb_, dict(idx),
-                        idx["out"])
+                        idx["out"], erows)
 
 
 def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,

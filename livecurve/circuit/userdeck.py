@@ -9,7 +9,13 @@ engineering units of :mod:`livecurve.units`)::
     D<name> <anode> <cathode> <model>
     Q<name> <c> <b> <e> <model>
     E<name> <out> <ref> <plus> <minus> <gain>
-    U<name> <plus> <minus> <out>        the chain's op-amp
+    C<name> <a> <b> <farads>            open at DC; a state of the stage's dynamics
+    L<name> <a> <b> <henries>           a short at DC; a state of the stage's dynamics
+    U<name> <plus> <minus> <out>        the stage's op-amp (chain-wide [opamp], or the
+                                        stage's own [stage.opamp] override)
+
+A stage with capacitors or inductors (or an op-amp with a gain-bandwidth) gets its
+line-rate filter from this schematic (:func:`livecurve.engine.dynamics.schematic_dynamics`).
 
 Node ``in`` is driven by the input, node ``out`` is the stage output, ``0`` is
 ground.  Models are declared in the stage's ``models`` table.
@@ -26,8 +32,10 @@ from livecurve.errors import ConfigError
 from livecurve.units import parse_value
 
 _TOKEN = re.compile(r"^[A-Za-z0-9_]+$")
-_ARITY = {"R": 3, "I": 3, "V": 3, "D": 3, "Q": 4, "E": 5, "U": 3}
-_UNIT = {"R": "ohm", "I": "A", "V": "V", "E": ""}
+_ARITY = {"R": 3, "I": 3, "V": 3, "D": 3, "Q": 4, "E": 5, "U": 3, "C": 3, "L": 3}
+_UNIT = {"R": "ohm", "I": "A", "V": "V", "E": "", "C": "F", "L": "H"}
+#: Card letter → unit kind of its value (:data:`livecurve.units.UNITS`).
+CARD_UNITS = dict(_UNIT)
 
 
 def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
@@ -55,7 +63,7 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
         ename = card[0]
         letter = ename[0].upper()
         if letter not in _ARITY:
-            raise ConfigError("unknown element letter; accepted: R I V D Q E U", path=path,
+            raise ConfigError("unknown element letter; accepted: R I V D Q E C L U", path=path,
                               key=k, value=raw)
         if len(card) != _ARITY[letter] + 1:
             raise ConfigError(f"'{letter}' takes {_ARITY[letter]} fields after the name",
@@ -81,6 +89,15 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
                 net.current(ename, f[0], f[1], v)
             elif letter == "V":
                 net.voltage(ename, f[0], f[1], v)
+            elif letter in ("C", "L"):
+                if not v > 0:
+                    raise ConfigError(f"a{'' if letter == 'C' else 'n'} "
+                                      f"{'capacitance' if letter == 'C' else 'inductance'} "
+                                      "must be above zero", path=path, key=k, value=f[-1])
+                if letter == "C":
+                    net.capacitor(ename, f[0], f[1], v)
+                else:
+                    net.inductor(ename, f[0], f[1], v)
             else:
                 net.vcvs(ename, f[2], f[3], f[0], f[1], v)
         elif letter in ("D", "Q"):
@@ -105,7 +122,7 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
 
 
 def element_values(lines) -> dict:
-    """Element name (lower case) → the value text on its card, for R/I/V/E cards."""
+    """Element name (lower case) → (letter, value text) of its card, for R/I/V/E/C/L cards."""
     out = {}
     for raw in lines:
         card = raw.split(";")[0].split()
