@@ -23,6 +23,7 @@ ground.  Models are declared in the stage's ``models`` table.
 
 from __future__ import annotations
 
+import functools
 import re
 
 from livecurve.circuit.devices import BjtModel, DiodeModel
@@ -36,6 +37,21 @@ _ARITY = {"R": 3, "I": 3, "V": 3, "D": 3, "Q": 4, "E": 5, "U": 3, "C": 3, "L": 3
 _UNIT = {"R": "ohm", "I": "A", "V": "V", "E": "", "C": "F", "L": "H"}
 #: Card letter → unit kind of its value (:data:`livecurve.units.UNITS`).
 CARD_UNITS = dict(_UNIT)
+
+
+@functools.lru_cache(maxsize=4096)
+def _parsed(text: str, unit: str) -> float:
+    return parse_value(text, unit)
+
+
+def card_value(text: str, unit: str, *, key: str | None = None, path: str | None = None
+               ) -> float:
+    """The SI value of a card's value text, parsed once per distinct text (every later
+    build, e.g. each table rebuild for a knob or a temperature, reuses it)."""
+    try:
+        return _parsed(text, unit)
+    except ConfigError:
+        return parse_value(text, unit, key=key, path=path)  # raises, naming key and file
 
 
 def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
@@ -79,7 +95,7 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
         if letter in _UNIT:
             v = values.get(ename.lower())
             if v is None:
-                v = parse_value(f[-1], _UNIT[letter], key=k, path=path)
+                v = card_value(f[-1], _UNIT[letter], key=k, path=path)
             if letter == "R":
                 if not v > 0:
                     raise ConfigError("a resistance must be above zero ohms", path=path, key=k,

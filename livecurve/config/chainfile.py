@@ -485,9 +485,9 @@ def _live(raw: dict, stages, path: str) -> dict:
 def nominal_value(stage: StageSpec, name: str):
     """The value a stage parameter has as written (before overrides and knobs)."""
     if stage.kind == "netlist":
-        from livecurve.circuit.userdeck import CARD_UNITS, element_values
+        from livecurve.circuit.userdeck import CARD_UNITS, card_value, element_values
         letter, text = element_values(stage.elements)[name.lower()]
-        return parse_value(text, CARD_UNITS[letter])
+        return card_value(text, CARD_UNITS[letter])
     if name in stage.params:
         return stage.params[name]
     if name.startswith("device."):

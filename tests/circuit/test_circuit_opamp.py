@@ -190,3 +190,62 @@ def test_exported_law_matches_solver_through_the_knee(ngspice, tmp_path):
     ref = ngspice_stage_sweep(ngspice, net, vin, 300.15, tmp_path, tag="knee")
     np.testing.assert_allclose(ours, ref, rtol=0, atol=1e-6)
     assert ours.max() == pytest.approx(10.5) and ours.min() == pytest.approx(-3.5)
+
+
+# ---- chain files: [opamp] keys, [stage.opamp] override, values parsed once -----------------
+NET_CHAIN = {
+    "title": "t", "space": "rgb",
+    "opamp": {"a_ol": "100k", "vos": "1mV", "ib_minus": "10nA", "ro": "20", "gbw": "50MHz"},
+    "stage": [{"id": "a", "kind": "netlist", "channels": [0],
+               "elements": ["RIN in sum 1k", "RF sum out 2k", "U1 0 sum out"]},
+              {"id": "b", "kind": "inverting_gain", "channels": [1], "r_in": "1k", "r_f": "1k",
+               "opamp": {"vos": "-2mV", "gbw": "10MHz"}}],
+    "live": {"gain": {"target": "a.RF", "min": "1k", "max": "4k"}},
+}
+
+
+def test_opamp_keys_reach_the_netlist_and_stage_override_wins():
+    from livecurve.circuit.chain import ChainModel
+    from livecurve.config.chainfile import parse_chain
+    spec = parse_chain(NET_CHAIN)
+    assert spec.opamp == OpampSpec(a_ol=1e5, vos_v=1e-3, ib_minus_a=10e-9, ro_ohm=20.0,
+                                   gbw_hz=50e6)
+    assert spec.stages[0].opamp is None
+    assert spec.stages[1].opamp == OpampSpec(a_ol=1e5, vos_v=-2e-3, ib_minus_a=10e-9,
+                                             ro_ohm=20.0, gbw_hz=10e6)
+    m = ChainModel(spec)
+    ua = next(e for e in m.netlist(0, spec.stages[0]).elements if e.kind == "OA")
+    ub = next(e for e in m.netlist(1, spec.stages[1]).elements if e.kind == "OA")
+    assert (ua.extra["vos"], ua.extra["gbw"], ub.extra["vos"], ub.extra["gbw"]) == \
+        (1e-3, 50e6, -2e-3, 10e6)
+
+
+@pytest.mark.parametrize("table, key", [({"a_ol": 1e5, "ibias": "1nA"}, "opamp.ibias"),
+                                        ({"gbw": "-5MHz"}, "opamp.gbw"),
+                                        ({"ro": "-1"}, "opamp.ro")])
+def test_bad_opamp_keys_are_refused_by_name(table, key):
+    from livecurve.config.chainfile import parse_chain
+    from livecurve.errors import ConfigError
+    with pytest.raises(ConfigError, match=key.replace(".", r"\.")):
+        parse_chain({**NET_CHAIN, "opamp": table})
+
+
+def test_rebuilding_tables_parses_no_value_text(monkeypatch):
+    """Values are parsed when the chain is read; turning a knob on a netlist element and
+    rebuilding the tables parses no text again (issue: parse every value once)."""
+    import livecurve.circuit.userdeck as ud
+    import livecurve.config.chainfile as cf
+    from livecurve.config.chainfile import parse_chain
+    from livecurve.engine.pipeline import FrameEngine
+    spec = parse_chain(NET_CHAIN)
+    eng = FrameEngine(spec)
+
+    def refuse(*a, **k):
+        raise AssertionError("parse_value called during a rebuild")
+    monkeypatch.setattr(ud, "parse_value", refuse)
+    monkeypatch.setattr(cf, "parse_value", refuse)
+    eng.state.live["gain"] = 3e3
+    eng.rebuild()
+    after = eng.model.transfer(0, [0.1], live={"gain": 3e3})[0]
+    # −(Rf/Rin)·Vin + Vos·(1 + Rf/Rin) + Rf·Ib (handbook forms above; A = 1e5 moves it 4e-5)
+    assert after == pytest.approx(-3.0 * 0.1 + 1e-3 * 4.0 + 3e3 * 10e-9, rel=1e-4)
