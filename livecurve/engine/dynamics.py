@@ -349,7 +349,8 @@ def schematic_dynamics(net, *, vin_v: float = 0.0, t_kelvin: float | None = None
                              float(vin_v), f"schematic of '{net.name}' ({a.shape[0]} states)")
 
 
-def stage_dynamics(stage, opamp=None, *, vin_v: float = 0.0, t_kelvin: float | None = None):
+def stage_dynamics(stage, opamp=None, *, net=None, vin_v: float = 0.0,
+                   t_kelvin: float | None = None):
     """The line-rate dynamics of one chain stage, or None when it has none.
 
     A ``[stage.dynamics]`` table (hand figures) wins; otherwise a stage whose schematic has
@@ -361,6 +362,10 @@ def stage_dynamics(stage, opamp=None, *, vin_v: float = 0.0, t_kelvin: float | N
     stage : livecurve.config.chainfile.StageSpec
     opamp : OpampSpec, optional
         The chain's op-amp (the stage's own ``[stage.opamp]`` overrides it).
+    net : Netlist, optional
+        The stage's netlist as one channel builds it (per-channel overrides and knob
+        values applied, e.g. ``ChainModel.netlist(channel, stage)``); default: the stage
+        as written.
     """
     from livecurve.circuit.stages import KINDS, OpampSpec, build_stage
     from livecurve.circuit.userdeck import build_user_stage
@@ -377,7 +382,9 @@ def stage_dynamics(stage, opamp=None, *, vin_v: float = 0.0, t_kelvin: float | N
         except ConfigError as exc:
             raise ConfigError(str(exc), key=f"{stage.id}.dynamics") from None
     op = stage.opamp or opamp or OpampSpec()
-    if stage.kind == "netlist":
+    if net is not None:
+        pass
+    elif stage.kind == "netlist":
         net = build_user_stage(stage.elements, stage.models, op, name=stage.id,
                                key=f"{stage.id}.elements")
     else:

@@ -53,12 +53,12 @@ class EngineState:
     temps_k: dict = field(default_factory=dict)
 
 
-def stage_dynamics(stage: StageSpec, opamp=None):
+def stage_dynamics(stage: StageSpec, opamp=None, net=None):
     """The stage's line-rate dynamics (hand figures or from its schematic), or None.
 
     See :func:`livecurve.engine.dynamics.stage_dynamics`."""
     from livecurve.engine.dynamics import stage_dynamics as _dynamics
-    return _dynamics(stage, opamp)
+    return _dynamics(stage, opamp, net=net)
 
 
 class FrameEngine:
@@ -117,7 +117,8 @@ class FrameEngine:
                 runs.append(cur)
             cur.stages.append(st)
             cur.knob = cur.knob or knob
-            dyn = stage_dynamics(st, self.spec.opamp)
+            # the channel's own netlist (its overrides, the knobs' starting values)
+            dyn = stage_dynamics(st, self.spec.opamp, self.model.netlist(ch, st, self.state.live))
             if dyn is not None:
                 cur.dynamics = dyn
                 cur = None

@@ -142,3 +142,20 @@ def test_schematic_filter_is_the_zoh_discretisation():
     # float32 planes in the kernel: measured 1e-7; bound 1e-6 of the step
     np.testing.assert_allclose(got, want, rtol=0, atol=1e-6)
     assert np.max(want) > 1.2  # it rings
+
+
+def test_channel_override_of_a_capacitor_reaches_that_channel_filter():
+    """Three boards built alike, one with a larger compensation capacitor: its channel's
+    filter is derived from its own value (pole 1/(2π·Rf·Cf): 16.9 MHz vs 7.2 MHz)."""
+    from livecurve.engine.pipeline import FrameEngine
+    lines = CASES["comp_cap"][0]
+    spec = parse_chain({"title": "boards", "space": "rgb", "format": "1080p30",
+                        "opamp": {"a_ol": A0},
+                        "stage": [{"id": "s", "kind": "netlist", "elements": lines}],
+                        "channel": {"1": {"s.CF": "11p"}}})
+    eng = FrameEngine(spec, pixel_period_s=1 / F_PIX)
+    dyn = [eng.runs[ch][0].dynamics for ch in range(3)]
+    assert dyn[0] == dyn[2] and dyn[0] != dyn[1]
+    for d, cf in ((dyn[0], 4.7e-12), (dyn[1], 11e-12)):
+        # an ideal-ish op-amp (no gbw): the one pole of −Rf/Rin/(1 + s·Rf·Cf)
+        assert d.bandwidth_3db_hz == pytest.approx(1 / (2 * math.pi * 2e3 * cf), rel=1e-3)
