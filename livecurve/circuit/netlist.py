@@ -17,6 +17,10 @@ OA        op-amp (+, −, out): out = limit(A·(v+ − v− + Vos)), linear ``B`
           quadratic knee at each end (:func:`opamp_law`); optional
           input bias currents and output resistance
 E         linear voltage-controlled voltage source                   ``E``
+C         capacitor: open at DC (small-signal dynamics only,         ``C``
+          :mod:`livecurve.circuit.smallsignal`)
+L         inductor: a 0 V source at DC, its current a branch         ``L``
+          unknown (a state of the small-signal dynamics)
 ========  =========================================================  ==============
 
 Every stage has an input node ``in`` (driven by VIN) and an output node ``out``.

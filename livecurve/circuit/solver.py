@@ -5,7 +5,10 @@ voltage source, op-amp output and controlled source (MNA, Ho–Ruehli–Brennan 
 Junctions are linearised about a limited junction voltage each iteration — the
 ``pnjlim`` step of Berkeley SPICE (Nagel, 1975) — so exponentials never overflow;
 the whole step is further damped so no node moves more than :data:`MAX_STEP_V` per
-iteration.  Sweeps are warm-started from the previous point; a point that does not
+iteration.  An op-amp's drive is limited the same way: a step that would carry it
+across the middle of an output knee (the limit itself) stops there, where the law's
+slope is ½, so an iterate cannot flip from rail to rail.  Sweeps are warm-started
+from the previous point; a point that does not
 converge is reached by source stepping (continuation in the input from the last
 good point); the very first point, and any point that continuation cannot reach,
 from a fresh operating point at zero input found by GMIN stepping from a large shunt

@@ -7,7 +7,8 @@ engine composes them.  Op-amps are behavioural sources with the solver's law
 (:func:`livecurve.circuit.netlist.opamp_law`: ``A·(v+ − v− + Vos)`` inside the output
 swing, a quadratic knee at each end) written with ngspice's ``min``/``max``
 (:func:`opamp_expression`), plus ``I`` cards for the input bias currents and an ``R``
-card for the output resistance.  Capacitors and inductors are ``C``/``L`` cards.
+card for the output resistance.  Capacitors and inductors are ``C``/``L`` cards.  The
+decks are DC sweeps: an op-amp's gain-bandwidth is not written (it has no DC effect).
 
 Tolerances follow REFERENCES.md: ngspice's default RELTOL leaves ~0.2 mV on log-amp
 outputs, so decks carry ``.options RELTOL=1e-7 VNTOL=1e-10 ABSTOL=1e-16``.
