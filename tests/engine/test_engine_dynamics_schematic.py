@@ -159,3 +159,12 @@ def test_channel_override_of_a_capacitor_reaches_that_channel_filter():
     for d, cf in ((dyn[0], 4.7e-12), (dyn[1], 11e-12)):
         # an ideal-ish op-amp (no gbw): the one pole of −Rf/Rin/(1 + s·Rf·Cf)
         assert d.bandwidth_3db_hz == pytest.approx(1 / (2 * math.pi * 2e3 * cf), rel=1e-3)
+
+
+def test_a_stage_without_dc_gain_is_refused_by_name():
+    """A series capacitor blocks DC: there is no static curve to split the filter from."""
+    from livecurve.errors import ConfigError
+    net = build_user_stage(["C1 in x 1n", "RL x 0 1k", "U1 x out out"], {},
+                           OpampSpec(a_ol=A0), name="coupled", key="s")
+    with pytest.raises(ConfigError, match="coupled"):
+        schematic_dynamics(net)
