@@ -112,6 +112,30 @@ def schematic_dynamics(net, *, vin_v: float = 0.0, t_kelvin: float | None = None
                              float(vin_v), f"schematic of '{net.name}' ({a.shape[0]} states)")
 
 
+def _fast_coordinates(phi: np.ndarray, c: np.ndarray) -> np.ndarray | None:
+    """T (n, n) with last row C and, for n = 3, first row a real left eigenvector of Φ
+    (so x'0 evolves on its own), or None when no well-conditioned T exists."""
+    n = phi.shape[0]
+    if n > 3 or not np.any(c):
+        return None
+    if n == 3:
+        lam, vecs = np.linalg.eig(phi.T)
+        real = [i for i in range(3) if abs(lam[i].imag) < 1e-12]
+        if not real:
+            return None
+        first = [np.real(vecs[:, real[0]])]
+    else:
+        first = []
+    best, best_det = None, 0.0
+    for k in range(n):
+        rows = [*first, *[np.eye(n)[i] for i in range(n) if i != k]][:n - 1]
+        tr = np.vstack([*rows, c[None, :]])
+        det = abs(np.linalg.det(tr)) / np.prod(np.linalg.norm(tr, axis=1))
+        if det > best_det:
+            best, best_det = tr, det
+    return best if best_det > 1e-6 else None
+
+
 def schematic_filter(dyn: SchematicDynamics, t: float) -> LineFilter:
     """The line filter of *dyn* at pixel period *t* (seconds).
 
@@ -128,6 +152,16 @@ def schematic_filter(dyn: SchematicDynamics, t: float) -> LineFilter:
     aug[:n, :n], aug[:n, n] = a, b
     m = expm(aug * t)
     phi, gam = m[:n, :n], m[:n, n]
+    tr = _fast_coordinates(phi, c) if d == 0.0 else None
+    if tr is not None:
+        # one block in the end-of-pixel form, in coordinates x' = T·x whose last state is
+        # the output (and, for three states, whose first state is a real mode on its
+        # own): the kernel's fast paths
+        tinv = np.linalg.inv(tr)
+        lin = np.hstack([tr @ phi @ tinv, (tr @ gam)[:, None]])
+        lin[0, 1:n][np.abs(lin[0, 1:n]) < 1e-13] = 0.0
+        row = pack_block(lin=lin, c=np.eye(n)[n - 1], d=0.0, end_state=True)
+        return LineFilter(row[None, :], t, "zoh", (dyn.label,))
     cd, dd = c @ phi, float(c @ gam + d)
     z, p, k = signal.ss2zpk(phi, gam[:, None], cd[None, :], np.array([[dd]]))
     z = z[np.isfinite(z)]
