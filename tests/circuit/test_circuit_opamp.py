@@ -132,8 +132,9 @@ def test_bias_current_limits_a_log_stage():
     real = solve_sweep(_stage("log_transdiode", dev, op=OpampSpec(a_ol=1e9, ib_minus_a=ib),
                               r_in=r_in, i_ref=i_ref), vin, t_kelvin=t_k)
     want = -vt * np.log((vin / r_in + i_ref - ib) / dev.is_a + 1.0)
-    np.testing.assert_allclose(real, want, rtol=0, atol=2e-6)
-    assert real[0] - ideal[0] == pytest.approx(vt * math.log(2.0), abs=2e-6)
+    # measured: 0.21 µV (the size GMIN, 1e-12 S across the junction, gives at 50 nA); bound 1 µV
+    np.testing.assert_allclose(real, want, rtol=0, atol=1e-6)
+    assert real[0] - ideal[0] == pytest.approx(vt * math.log(2.0), abs=1e-6)
     # bias current above the reference: black cannot be logged, the output saturates
     starved = solve_sweep(_stage("log_transdiode", dev, op=OpampSpec(a_ol=1e9, ib_minus_a=2e-7),
                                  r_in=r_in, i_ref=i_ref), [0.0], t_kelvin=t_k)[0]
@@ -171,10 +172,10 @@ def test_real_opamp_matches_hand_deck_and_exported_deck(ngspice, tmp_path):
     ours = solve_sweep(net, vin, t_kelvin=300.15)
     run_ngspice(ngspice, _hand_deck(tmp_path / "hand.dat", vos, ibn, ro), tmp_path / "hand.cir")
     hand = np.loadtxt(tmp_path / "hand.dat", skiprows=1, ndmin=2)[:, 1]
-    # measured: < 1 µV against both decks; bound 10 µV
-    np.testing.assert_allclose(ours, hand, rtol=0, atol=1e-5)
+    # measured: 4.4 nV against both decks; bound 1 µV
+    np.testing.assert_allclose(ours, hand, rtol=0, atol=1e-6)
     exported = ngspice_stage_sweep(ngspice, net, vin, 300.15, tmp_path, tag="exp")
-    np.testing.assert_allclose(ours, exported, rtol=0, atol=1e-5)
+    np.testing.assert_allclose(ours, exported, rtol=0, atol=1e-6)
     text = stage_deck(net, vin, t_kelvin=300.15, data_file="x.dat")
     assert check_deck(text) == text and "max(" in text and "IBN" in text
 
@@ -188,7 +189,8 @@ def test_exported_law_matches_solver_through_the_knee(ngspice, tmp_path):
     vin = np.linspace(-0.45, 1.15, 161)  # drive −4.5 … 11.5 V: both knees, both limits
     ours = solve_sweep(net, vin, t_kelvin=300.15)
     ref = ngspice_stage_sweep(ngspice, net, vin, 300.15, tmp_path, tag="knee")
-    np.testing.assert_allclose(ours, ref, rtol=0, atol=1e-6)
+    # measured: 4e-15 V; bound 1 nV
+    np.testing.assert_allclose(ours, ref, rtol=0, atol=1e-9)
     assert ours.max() == pytest.approx(10.5) and ours.min() == pytest.approx(-3.5)
 
 

@@ -34,8 +34,8 @@ def test_bandwidth_follows_the_format(fmt, clock):
     dyn = StageDynamics(gbw_hz=60e6, noise_gain=3.0)     # closed-loop pole at 20 MHz
     fig = figures_at_format(dyn, fmt)
     assert fig["pixel_clock_hz"] == pytest.approx(clock)
-    # measured: agreement to 1e-9 relative (Brent's root); bound 1e-6
-    assert fig["bw_hz"] == pytest.approx(_zoh_first_order_3db(20e6, clock), rel=1e-6)
+    # measured: 4e-14 relative; bound 1e-9 (Brent's root tolerance is 1e-12)
+    assert fig["bw_hz"] == pytest.approx(_zoh_first_order_3db(20e6, clock), rel=1e-9)
     same = figures_at_format(dyn, pixel_clock_hz=clock)
     assert same["bw_hz"] == fig["bw_hz"]
 
