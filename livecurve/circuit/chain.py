@@ -69,7 +69,7 @@ class ChainModel:
     def netlist(self, channel: int, stage: StageSpec, live: dict | None = None) -> Netlist:
         """The netlist of *stage* on *channel* with overrides and knob values applied."""
         changes = self.values(channel, stage, live)
-        op = self.spec.opamp
+        op = stage.opamp or self.spec.opamp
         if stage.kind == "netlist":
             return build_user_stage(stage.elements, stage.models, op, name=stage.id,
                                     key=f"{stage.id}.elements", path=self.spec.path,

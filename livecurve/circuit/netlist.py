@@ -12,9 +12,15 @@ V         voltage source, v(a) − v(b) = volts                         ``V``
 VIN       the swept input source (``in`` to ground)                  ``V`` (VIN)
 D         Shockley diode a→c with a :class:`DiodeModel`              ``D`` + .model
 Q         NPN/PNP BJT (c, b, e) with a :class:`BjtModel`             ``Q`` + .model
-OA        op-amp (+, −, out): out = mid + half·tanh(A·vd/half),      ``B`` source
-          output swing set by the rails less a headroom
+OA        op-amp (+, −, out): out = limit(A·(v+ − v− + Vos)), linear ``B`` source
+          inside the output swing (rails less a headroom), a          (+ ``I``, ``R``)
+          quadratic knee at each end (:func:`opamp_law`); optional
+          input bias currents and output resistance
 E         linear voltage-controlled voltage source                   ``E``
+C         capacitor: open at DC (small-signal dynamics only,         ``C``
+          :mod:`livecurve.circuit.smallsignal`)
+L         inductor: a 0 V source at DC, its current a branch         ``L``
+          unknown (a state of the small-signal dynamics)
 ========  =========================================================  ==============
 
 Every stage has an input node ``in`` (driven by VIN) and an output node ``out``.
@@ -34,6 +40,44 @@ from livecurve.circuit.devices import BjtModel, DiodeModel, thermal_voltage
 from livecurve.errors import ConfigError, SolverError
 
 GROUND = ("0", "gnd", "GND")
+
+#: Half-width of the op-amp's output knee, volts: the output is exactly A·vd until it comes
+#: within KNEE_V of a limit, then bends over a parabola and reaches the limit when the
+#: drive A·vd is KNEE_V beyond it (narrowed to a quarter of the swing on tiny swings).
+KNEE_V = 0.2
+
+
+def opamp_slope(drive_v: float, hi_v: float, lo_v: float, knee_v: float = KNEE_V) -> float:
+    """d(opamp_law)/d(drive) at one drive value: 1 inside, falling linearly to 0 across
+    each knee, 0 beyond."""
+    d = float(drive_v)
+    if d >= hi_v + knee_v or d <= lo_v - knee_v:
+        return 0.0
+    if d > hi_v - knee_v:
+        return 1.0 - (d - (hi_v - knee_v)) / (2.0 * knee_v)
+    if d < lo_v + knee_v:
+        return 1.0 - ((lo_v + knee_v) - d) / (2.0 * knee_v)
+    return 1.0
+
+
+def opamp_law(drive_v, hi_v: float, lo_v: float, knee_v: float = KNEE_V):
+    """The op-amp's static output for an open-loop drive ``A·(v+ − v− + Vos)`` (volts).
+
+    ``y = drive`` for ``lo + knee <= drive <= hi − knee``; above, with
+    ``e = drive − (hi − knee)``, ``y = drive − e²/(4·knee)`` up to ``drive = hi + knee``
+    and ``y = hi`` beyond (mirrored at the low end).  Value and slope are continuous (C1),
+    the slope falls linearly from 1 to 0 across the knee, and there is no offset anywhere
+    inside the swing whatever the rails.
+
+    Returns
+    -------
+    ndarray (same shape as *drive_v*), volts.
+    """
+    v = np.asarray(drive_v, dtype=np.float64)
+    e_hi = np.clip(v - (hi_v - knee_v), 0.0, 2.0 * knee_v)
+    y = np.minimum(v, hi_v + knee_v) - e_hi * e_hi / (4.0 * knee_v)
+    e_lo = np.clip((lo_v + knee_v) - y, 0.0, 2.0 * knee_v)
+    return np.maximum(y, lo_v - knee_v) + e_lo * e_lo / (4.0 * knee_v)
 
 
 @dataclass
@@ -60,6 +104,7 @@ class Compiled:
     n_unknowns: int
     node_index: dict
     out_index: int
+    element_rows: dict = field(default_factory=dict)  # OA / L element name -> its row
 
 
 class Netlist:
@@ -108,17 +153,52 @@ class Netlist:
         return self._add(Element("Q", name, (c, b, e), model=model))
 
     def opamp(self, name: str, plus: str, minus: str, out: str, *, a_ol: float,
-              v_pos_v: float, v_neg_v: float, headroom_v: float) -> Element:
-        """Op-amp with open-loop gain *a_ol*; output swings between the rails less *headroom_v*."""
+              v_pos_v: float, v_neg_v: float, headroom_v: float, vos_v: float = 0.0,
+              ib_plus_a: float = 0.0, ib_minus_a: float = 0.0, ro_ohm: float = 0.0,
+              gbw_hz: float | None = None) -> Element:
+        """Op-amp with open-loop gain *a_ol*; output swings between the rails less *headroom_v*.
+
+        *vos_v* is the input offset (added to v+ − v−); *ib_plus_a* / *ib_minus_a* are the
+        bias currents drawn out of the + / − input nodes into the op-amp; *ro_ohm* is the
+        open-loop output resistance; *gbw_hz* the gain-bandwidth product (dynamics only:
+        a single pole at gbw/a_ol).
+        """
         hi, lo = v_pos_v - headroom_v, v_neg_v + headroom_v
+        key = f"{self.name}.{name}"
         if not hi > lo:
             raise ConfigError("rails less headroom leave no output swing",
-                              key=f"{self.name}.{name}", value=(v_neg_v, v_pos_v, headroom_v))
+                              key=key, value=(v_neg_v, v_pos_v, headroom_v))
         if not a_ol > 0:
-            raise ConfigError("open-loop gain must be above zero", key=f"{self.name}.{name}",
-                              value=a_ol)
+            raise ConfigError("open-loop gain must be above zero", key=key, value=a_ol)
+        for what, v in (("vos", vos_v), ("ib_plus", ib_plus_a), ("ib_minus", ib_minus_a)):
+            if not math.isfinite(v):
+                raise ConfigError("must be finite", key=f"{key}.{what}", value=v)
+        if not (ro_ohm >= 0.0 and math.isfinite(ro_ohm)):
+            raise ConfigError("output resistance must be finite and 0 or more",
+                              key=f"{key}.ro", value=ro_ohm)
+        if gbw_hz is not None and not (gbw_hz > 0.0 and math.isfinite(gbw_hz)):
+            raise ConfigError("gain-bandwidth must be finite and above zero",
+                              key=f"{key}.gbw", value=gbw_hz)
+        knee = min(KNEE_V, 0.25 * (hi - lo))
         return self._add(Element("OA", name, (plus, minus, out), float(a_ol),
-                                 extra={"hi": hi, "lo": lo}))
+                                 extra={"hi": hi, "lo": lo, "knee": knee, "vos": float(vos_v),
+                                        "ib_plus": float(ib_plus_a),
+                                        "ib_minus": float(ib_minus_a),
+                                        "ro": float(ro_ohm), "gbw": gbw_hz}))
+
+    def capacitor(self, name: str, a: str, b: str, c_farad: float) -> Element:
+        """Capacitor (open at DC; a state of the small-signal dynamics)."""
+        if not (c_farad > 0.0) or not math.isfinite(c_farad):
+            raise ConfigError("a capacitance must be finite and above zero farads",
+                              key=f"{self.name}.{name}", value=c_farad)
+        return self._add(Element("C", name, (a, b), float(c_farad)))
+
+    def inductor(self, name: str, a: str, b: str, l_henry: float) -> Element:
+        """Inductor (a short at DC; a state of the small-signal dynamics)."""
+        if not (l_henry > 0.0) or not math.isfinite(l_henry):
+            raise ConfigError("an inductance must be finite and above zero henries",
+                              key=f"{self.name}.{name}", value=l_henry)
+        return self._add(Element("L", name, (a, b), float(l_henry)))
 
     def vcvs(self, name: str, plus: str, minus: str, out: str, ref: str, gain: float) -> Element:
         return self._add(Element("E", name, (plus, minus, out, ref), float(gain)))
@@ -146,6 +226,7 @@ class Netlist:
         if "in" not in self.node_names() or "out" not in self.node_names():
             raise ConfigError("a stage netlist needs nodes 'in' and 'out'", key=self.name)
         rows: list[tuple[int, tuple[int, int, int, int], list[float], bool]] = []
+        erows: dict[str, int] = {}
         vt = thermal_voltage(t_kelvin)
         for el in self.elements:
             if el.kind == "R":
@@ -195,10 +276,26 @@ class Netlist:
                               vtf * math.log(vtf / (math.sqrt(2.0) * is_t)),
                               vtr * math.log(vtr / (math.sqrt(2.0) * is_t))], False))
             elif el.kind == "OA":
-                hi, lo = el.extra["hi"], el.extra["lo"]
+                x = el.extra
                 p, n_, o = el.nodes
+                if x["ro"] > 0:
+                    inner = f"{el.name}#o"
+                    rows.append((_s.K_R, (node(inner), node(o), -1, -1), [1.0 / x["ro"]],
+                                 False))
+                    o = inner
+                for term, ib in ((p, x["ib_plus"]), (n_, x["ib_minus"])):
+                    if ib != 0.0:
+                        rows.append((_s.K_I, (node(term), -1, -1, -1), [ib], False))
+                erows[el.name] = len(rows)
                 rows.append((_s.K_OA, (node(p), node(n_), node(o), -1),
-                             [el.value, 0.5 * (hi + lo), 0.5 * (hi - lo)], True))
+                             [el.value, x["hi"], x["lo"], x["knee"], x["vos"]], True))
+            elif el.kind == "C":
+                pass  # open at DC
+            elif el.kind == "L":
+                # a short at DC: a 0 V source whose branch current is the inductor current
+                erows[el.name] = len(rows)
+                rows.append((_s.K_V, (node(el.nodes[0]), node(el.nodes[1]), -1, -1), [0.0],
+                             True))
             elif el.kind == "E":
                 p, n_, o, r = el.nodes
                 rows.append((_s.K_E, (node(p), node(n_), node(o), node(r)), [el.value], True))
@@ -214,7 +311,7 @@ class Netlist:
                 branch[k] = n_nodes + nb_
                 nb_ += 1
         return Compiled(kinds, nodes, params, branch, n_nodes, n_nodes + nb_, dict(idx),
-                        idx["out"])
+                        idx["out"], erows)
 
 
 def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,

@@ -5,7 +5,10 @@ voltage source, op-amp output and controlled source (MNA, Ho–Ruehli–Brennan 
 Junctions are linearised about a limited junction voltage each iteration — the
 ``pnjlim`` step of Berkeley SPICE (Nagel, 1975) — so exponentials never overflow;
 the whole step is further damped so no node moves more than :data:`MAX_STEP_V` per
-iteration.  Sweeps are warm-started from the previous point; a point that does not
+iteration.  An op-amp's drive is limited the same way: a step that would carry it
+across the middle of an output knee (the limit itself) stops there, where the law's
+slope is ½, so an iterate cannot flip from rail to rail.  Sweeps are warm-started
+from the previous point; a point that does not
 converge is reached by source stepping (continuation in the input from the last
 good point); the very first point, and any point that continuation cannot reach,
 from a fresh operating point at zero input found by GMIN stepping from a large shunt
@@ -59,6 +62,42 @@ def _exp_junction(v, is_a, nvt):
         return is_a * (e * (1.0 + a - 80.0) - 1.0), is_a * e / nvt
     e = math.exp(a)
     return is_a * (e - 1.0), is_a * e / nvt
+
+
+@nb.njit(cache=True, inline="always")
+def _opamp_law(v, hi, lo, knee):
+    # y = v inside [lo + knee, hi − knee]; a parabola over the last 2·knee of the drive at
+    # each end joins it to the limit with matching slope (C1), so Newton always sees
+    # a slope that falls smoothly to zero; returns (y, dy/dv).
+    if v > hi - knee:
+        if v >= hi + knee:
+            return hi, 0.0
+        e = v - (hi - knee)
+        return v - e * e / (4.0 * knee), 1.0 - e / (2.0 * knee)
+    if v < lo + knee:
+        if v <= lo - knee:
+            return lo, 0.0
+        e = (lo + knee) - v
+        return v + e * e / (4.0 * knee), 1.0 - e / (2.0 * knee)
+    return v, 1.0
+
+
+@nb.njit(cache=True, inline="always")
+def _oalim(drive, old, hi, lo):
+    # Op-amp counterpart of pnjlim: a Newton step whose drive would cross the middle of
+    # an output knee (the limit itself) is stopped there, where the law's slope is ½;
+    # without it an iterate can flip from rail to rail, or cycle across a narrow knee.
+    if drive > old:
+        if old < lo < drive:
+            return lo, True
+        if old < hi < drive:
+            return hi, True
+    elif drive < old:
+        if old > hi > drive:
+            return hi, True
+        if old > lo > drive:
+            return lo, True
+    return drive, False
 
 
 @nb.njit(cache=True)
@@ -202,21 +241,27 @@ def _stamp(kinds, nodes, params, branch, n_nodes, x, vin, vj, limit, gshunt, J, 
             _add(J, f, e, e, -die_dbe)
             _add(J, f, e, c, -die_dbc)
         elif kind == K_OA:
-            # op-amp: output = vmid + vhalf * tanh(A * (vp - vn) / vhalf)
+            # op-amp: output = limit(A·(vp − vn + vos)), linear inside the swing with a
+            # quadratic knee at each end (netlist.opamp_law, the same law)
             out = nodes[k, 2]
             br = branch[k]
             a_ol = params[k, 0]
-            vmid = params[k, 1]
-            vhalf = params[k, 2]
-            vdiff = _volt(x, a) - _volt(x, b)
-            t = math.tanh(a_ol * vdiff / vhalf)
-            g = a_ol * (1.0 - t * t)
+            hi = params[k, 1]
+            lo = params[k, 2]
+            drive = a_ol * (_volt(x, a) - _volt(x, b) + params[k, 4])
+            dl = drive
+            if limit:
+                dl, lim = _oalim(drive, vj[k, 0], hi, lo)
+                limited = limited or lim
+            vj[k, 0] = dl
+            y, slope = _opamp_law(dl, hi, lo, params[k, 3])
+            g = a_ol * slope
             ib = x[br]
             if out >= 0:
                 f[out] += ib
                 J[out, br] += 1.0
                 J[br, out] += 1.0
-            f[br] = _volt(x, out) - (vmid + vhalf * t)
+            f[br] = _volt(x, out) - (y + slope * (drive - dl))
             if a >= 0:
                 J[br, a] -= g
             if b >= 0:

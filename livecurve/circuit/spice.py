@@ -3,8 +3,12 @@
 The deck is self-contained and runs in ``ngspice -b``: the swept source is ``VIN``,
 channel outputs are nodes ``out0``, ``out1``, ``out2``, and a ``.dc`` sweep covers
 the chain's sweep range.  Stages are joined by unity VCVS buffers, exactly as the
-engine composes them.  Op-amps are behavioural sources
-``out = mid + half·tanh(A·(v+ − v−)/half)``, the same law the solver uses.
+engine composes them.  Op-amps are behavioural sources with the solver's law
+(:func:`livecurve.circuit.netlist.opamp_law`: ``A·(v+ − v− + Vos)`` inside the output
+swing, a quadratic knee at each end) written with ngspice's ``min``/``max``
+(:func:`opamp_expression`), plus ``I`` cards for the input bias currents and an ``R``
+card for the output resistance.  Capacitors and inductors are ``C``/``L`` cards.  The
+decks are DC sweeps: an op-amp's gain-bandwidth is not written (it has no DC effect).
 
 Tolerances follow REFERENCES.md: ngspice's default RELTOL leaves ~0.2 mV on log-amp
 outputs, so decks carry ``.options RELTOL=1e-7 VNTOL=1e-10 ABSTOL=1e-16``.
@@ -37,7 +41,7 @@ _NAME = re.compile(r"^[A-Za-z0-9_]+$")
 _PATH = re.compile(r"^[A-Za-z0-9_./+\-]+$")
 # Lines this module writes, and nothing else (see check_deck).
 _COMMENT = re.compile(r"^\* [ -~]*$")
-_ELEMENT = re.compile(r"^[RIVEDQB][A-Za-z0-9_]+( [A-Za-z0-9_.+\-*/()=]+)+$")
+_ELEMENT = re.compile(r"^[RIVEDQBCL][A-Za-z0-9_]+( [A-Za-z0-9_.+\-*/()=,]+)+$")
 _DOT = re.compile(r"^\.(options|temp|dc|print dc|model [A-Za-z0-9_]+ (D|NPN|PNP)\()"
                   r"[ A-Za-z0-9_.+\-=()]*$")
 _CONTROL = re.compile(r"^(set wr_singlescale|set wr_vecnames|run|quit|"
@@ -109,6 +113,29 @@ def _data_path(path: str) -> str:
     return path
 
 
+def _num(x: float) -> str:
+    """A number for an expression: negative values in parentheses."""
+    return f"({_g(x)})" if x < 0 else _g(x)
+
+
+def opamp_expressions(drive_node: str, upper_node: str, hi_v: float, lo_v: float,
+                      knee_v: float) -> tuple[str, str]:
+    """ngspice B-source text of :func:`livecurve.circuit.netlist.opamp_law` in two steps.
+
+    The first expression (the upper knee) is written onto *upper_node* from the drive on
+    *drive_node*; the second (the lower knee) gives the output from *upper_node*.  Only
+    ``min``, ``max``, ``+ − * /`` and parentheses: every ngspice B source has them, and
+    their derivatives are exact, so ngspice's Newton sees the solver's slope.
+    """
+    q = _g(4.0 * knee_v)
+    u = f"min(V({drive_node}),{_num(hi_v + knee_v)})"
+    e_hi = f"max({u}-{_num(hi_v - knee_v)},0)"
+    upper = f"{u}-{e_hi}*{e_hi}/{q}"
+    v = f"max(V({upper_node}),{_num(lo_v - knee_v)})"
+    e_lo = f"max({_num(lo_v + knee_v)}-{v},0)"
+    return upper, f"{v}+{e_lo}*{e_lo}/{q}"
+
+
 def netlist_cards(net: Netlist, prefix: str, t_kelvin: float | None = None,
                   ground: str = "0") -> list[str]:
     """SPICE cards for one stage; node ``n`` becomes ``{prefix}_n``; VIN is omitted.
@@ -152,10 +179,24 @@ def netlist_cards(net: Netlist, prefix: str, t_kelvin: float | None = None,
                           f"RB={_g(m.rb_ohm)} RC={_g(m.rc_ohm)})")
         elif el.kind == "OA":
             p, n_, o = el.nodes
-            hi, lo = el.extra["hi"], el.extra["lo"]
-            mid, half = 0.5 * (hi + lo), 0.5 * (hi - lo)
-            cards.append(f"B{name} {nd(o)} 0 V = {_g(mid)} + {_g(half)}*tanh({_g(el.value)}*"
-                         f"(V({nd(p)})-V({nd(n_)}))/{_g(half)})")
+            x = el.extra
+            drive, upper = f"{name}_drive", f"{name}_knee"
+            out = nd(o)
+            if x["ro"] > 0:
+                out = f"{name}_o"
+                cards.append(f"R{name}_RO {out} {nd(o)} {_g(x['ro'])}")
+            e_upper, e_out = opamp_expressions(drive, upper, x["hi"], x["lo"], x["knee"])
+            cards += [f"B{name}_D {drive} 0 V = {_g(el.value)}*(V({nd(p)})-V({nd(n_)})"
+                      f"+{_num(x['vos'])})",
+                      f"B{name}_K {upper} 0 V = {e_upper}",
+                      f"B{name} {out} 0 V = {e_out}"]
+            for term, ib, tag in ((p, x["ib_plus"], "IBP"), (n_, x["ib_minus"], "IBN")):
+                if ib != 0.0:
+                    cards.append(f"I{name}_{tag} {nd(term)} 0 DC {_g(ib)}")
+        elif el.kind == "C":
+            cards.append(f"C{name} {nd(el.nodes[0])} {nd(el.nodes[1])} {_g(el.value)}")
+        elif el.kind == "L":
+            cards.append(f"L{name} {nd(el.nodes[0])} {nd(el.nodes[1])} {_g(el.value)}")
     return cards + models
 
 

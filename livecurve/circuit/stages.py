@@ -40,12 +40,43 @@ from livecurve.errors import ConfigError
 
 @dataclass(frozen=True)
 class OpampSpec:
-    """The op-amp every stage uses (DC part; dynamics live in the stage's dynamics block)."""
+    """The op-amp a stage uses.
+
+    Attributes
+    ----------
+    a_ol : float
+        Open-loop DC gain (> 1).
+    v_pos_v, v_neg_v : float
+        Supply rails, volts.
+    headroom_v : float
+        The output swings to within this of each rail, volts.
+    vos_v : float
+        Input offset voltage, volts (added to v+ − v−; default 0).
+    ib_plus_a, ib_minus_a : float
+        Input bias currents drawn out of the + and − input nodes, amps (default 0).
+    ro_ohm : float
+        Open-loop output resistance, ohms (default 0).
+    gbw_hz : float or None
+        Gain-bandwidth product, Hz: a single pole at gbw/a_ol in the schematic's
+        small-signal dynamics (None: no pole, the op-amp is as fast as its circuit).
+    """
 
     a_ol: float = 2e5
     v_pos_v: float = 12.0
     v_neg_v: float = -12.0
     headroom_v: float = 1.5
+    vos_v: float = 0.0
+    ib_plus_a: float = 0.0
+    ib_minus_a: float = 0.0
+    ro_ohm: float = 0.0
+    gbw_hz: float | None = None
+
+    def element_kw(self) -> dict:
+        """Keyword arguments of :meth:`Netlist.opamp` for this op-amp."""
+        return {"a_ol": self.a_ol, "v_pos_v": self.v_pos_v, "v_neg_v": self.v_neg_v,
+                "headroom_v": self.headroom_v, "vos_v": self.vos_v,
+                "ib_plus_a": self.ib_plus_a, "ib_minus_a": self.ib_minus_a,
+                "ro_ohm": self.ro_ohm, "gbw_hz": self.gbw_hz}
 
 
 @dataclass(frozen=True)
@@ -77,8 +108,7 @@ class StageKind:
 
 
 def _opamp(net: Netlist, op: OpampSpec, plus: str, minus: str, out: str = "out") -> None:
-    net.opamp("U1", plus, minus, out, a_ol=op.a_ol, v_pos_v=op.v_pos_v, v_neg_v=op.v_neg_v,
-              headroom_v=op.headroom_v)
+    net.opamp("U1", plus, minus, out, **op.element_kw())
 
 
 def _reference_divider(net: Netlist, p: dict, node: str = "tap") -> None:

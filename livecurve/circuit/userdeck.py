@@ -9,7 +9,13 @@ engineering units of :mod:`livecurve.units`)::
     D<name> <anode> <cathode> <model>
     Q<name> <c> <b> <e> <model>
     E<name> <out> <ref> <plus> <minus> <gain>
-    U<name> <plus> <minus> <out>        the chain's op-amp
+    C<name> <a> <b> <farads>            open at DC; a state of the stage's dynamics
+    L<name> <a> <b> <henries>           a short at DC; a state of the stage's dynamics
+    U<name> <plus> <minus> <out>        the stage's op-amp (chain-wide [opamp], or the
+                                        stage's own [stage.opamp] override)
+
+A stage with capacitors or inductors (or an op-amp with a gain-bandwidth) gets its
+line-rate filter from this schematic (:func:`livecurve.engine.dynamics.schematic_dynamics`).
 
 Node ``in`` is driven by the input, node ``out`` is the stage output, ``0`` is
 ground.  Models are declared in the stage's ``models`` table.
@@ -17,6 +23,7 @@ ground.  Models are declared in the stage's ``models`` table.
 
 from __future__ import annotations
 
+import functools
 import re
 
 from livecurve.circuit.devices import BjtModel, DiodeModel
@@ -26,8 +33,25 @@ from livecurve.errors import ConfigError
 from livecurve.units import parse_value
 
 _TOKEN = re.compile(r"^[A-Za-z0-9_]+$")
-_ARITY = {"R": 3, "I": 3, "V": 3, "D": 3, "Q": 4, "E": 5, "U": 3}
-_UNIT = {"R": "ohm", "I": "A", "V": "V", "E": ""}
+_ARITY = {"R": 3, "I": 3, "V": 3, "D": 3, "Q": 4, "E": 5, "U": 3, "C": 3, "L": 3}
+_UNIT = {"R": "ohm", "I": "A", "V": "V", "E": "", "C": "F", "L": "H"}
+#: Card letter → unit kind of its value (:data:`livecurve.units.UNITS`).
+CARD_UNITS = dict(_UNIT)
+
+
+@functools.lru_cache(maxsize=4096)
+def _parsed(text: str, unit: str) -> float:
+    return parse_value(text, unit)
+
+
+def card_value(text: str, unit: str, *, key: str | None = None, path: str | None = None
+               ) -> float:
+    """The SI value of a card's value text, parsed once per distinct text (every later
+    build, e.g. each table rebuild for a knob or a temperature, reuses it)."""
+    try:
+        return _parsed(text, unit)
+    except ConfigError:
+        return parse_value(text, unit, key=key, path=path)  # raises, naming key and file
 
 
 def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
@@ -55,7 +79,7 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
         ename = card[0]
         letter = ename[0].upper()
         if letter not in _ARITY:
-            raise ConfigError("unknown element letter; accepted: R I V D Q E U", path=path,
+            raise ConfigError("unknown element letter; accepted: R I V D Q E C L U", path=path,
                               key=k, value=raw)
         if len(card) != _ARITY[letter] + 1:
             raise ConfigError(f"'{letter}' takes {_ARITY[letter]} fields after the name",
@@ -71,7 +95,7 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
         if letter in _UNIT:
             v = values.get(ename.lower())
             if v is None:
-                v = parse_value(f[-1], _UNIT[letter], key=k, path=path)
+                v = card_value(f[-1], _UNIT[letter], key=k, path=path)
             if letter == "R":
                 if not v > 0:
                     raise ConfigError("a resistance must be above zero ohms", path=path, key=k,
@@ -81,6 +105,15 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
                 net.current(ename, f[0], f[1], v)
             elif letter == "V":
                 net.voltage(ename, f[0], f[1], v)
+            elif letter in ("C", "L"):
+                if not v > 0:
+                    raise ConfigError(f"a{'' if letter == 'C' else 'n'} "
+                                      f"{'capacitance' if letter == 'C' else 'inductance'} "
+                                      "must be above zero", path=path, key=k, value=f[-1])
+                if letter == "C":
+                    net.capacitor(ename, f[0], f[1], v)
+                else:
+                    net.inductor(ename, f[0], f[1], v)
             else:
                 net.vcvs(ename, f[2], f[3], f[0], f[1], v)
         elif letter in ("D", "Q"):
@@ -95,8 +128,7 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
             else:
                 net.bjt(ename, f[0], f[1], f[2], m)
         else:
-            net.opamp(ename, f[0], f[1], f[2], a_ol=op.a_ol, v_pos_v=op.v_pos_v,
-                      v_neg_v=op.v_neg_v, headroom_v=op.headroom_v)
+            net.opamp(ename, f[0], f[1], f[2], **op.element_kw())
     nodes = net.node_names()
     if "out" not in nodes:
         raise ConfigError("the netlist has no node 'out'", path=path, key=key)
@@ -152,7 +184,7 @@ def _check_dc_paths(lines, *, path, key) -> None:
 
 
 def element_values(lines) -> dict:
-    """Element name (lower case) → the value text on its card, for R/I/V/E cards."""
+    """Element name (lower case) → (letter, value text) of its card, for R/I/V/E/C/L cards."""
     out = {}
     for raw in lines:
         card = raw.split(";")[0].split()

@@ -12,7 +12,7 @@ import contextlib
 import math
 import re
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from livecurve.circuit.devices import BjtModel, DiodeModel
@@ -49,6 +49,7 @@ class StageSpec:
     channels: tuple = (0, 1, 2)
     dynamics: dict = field(default_factory=dict)
     rth_k_per_w: float = 0.0
+    opamp: OpampSpec | None = None  # the stage's own op-amp ([stage.opamp]); None: the chain's
 
 
 @dataclass(frozen=True)
@@ -150,17 +151,8 @@ def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
     if vpos - vneg > 100:
         raise ConfigError("supply span above 100 V is outside what this tool models",
                           path=path, key="supply", value=vpos - vneg)
-    oa = _table(raw, "opamp", path)
-    _unknown(oa, {"a_ol", "headroom"}, "opamp", path)
-    a_ol = parse_value(oa.get("a_ol", 2e5), "", key="opamp.a_ol", path=path)
-    head = parse_value(oa.get("headroom", "1.5V"), "V", key="opamp.headroom", path=path)
-    if not a_ol > 1:
-        raise ConfigError("open-loop gain must be above 1", path=path, key="opamp.a_ol",
-                          value=a_ol)
-    if head < 0 or vpos - head <= vneg + head:
-        raise ConfigError("headroom leaves no output swing between the rails", path=path,
-                          key="opamp.headroom", value=head)
-    op = OpampSpec(a_ol=a_ol, v_pos_v=vpos, v_neg_v=vneg, headroom_v=head)
+    op = parse_opamp(_table(raw, "opamp", path), OpampSpec(v_pos_v=vpos, v_neg_v=vneg),
+                     "opamp", path)
     conv = _table(raw, "converter", path)
     _unknown(conv, {"bits", "range"}, "converter", path)
     bits = conv.get("bits", 10)
@@ -186,7 +178,7 @@ def parse_chain(raw: dict, *, path: str = "<chain>") -> ChainSpec:
     stages_raw = raw.get("stage")
     if not isinstance(stages_raw, list) or not stages_raw:
         raise ConfigError("a chain needs at least one [[stage]]", path=path, key="stage")
-    stages = tuple(_stage(s, i, path) for i, s in enumerate(stages_raw))
+    stages = tuple(_stage(s, i, path, op) for i, s in enumerate(stages_raw))
     ids = [s.id for s in stages]
     for s in ids:
         if ids.count(s) > 1:
@@ -274,7 +266,37 @@ def parse_device(raw: dict, junction: str, key: str, path: str):
     return BjtModel(polarity=junction, **kw).check(key, path)
 
 
-def _stage(raw: dict, i: int, path: str) -> StageSpec:
+#: ``[opamp]`` keys → (OpampSpec field, unit kind).
+OPAMP_KEYS = {"a_ol": ("a_ol", ""), "headroom": ("headroom_v", "V"), "vos": ("vos_v", "V"),
+              "ib_plus": ("ib_plus_a", "A"), "ib_minus": ("ib_minus_a", "A"),
+              "ro": ("ro_ohm", "ohm"), "gbw": ("gbw_hz", "Hz")}
+
+
+def parse_opamp(table: dict, base: OpampSpec, where: str, path: str) -> OpampSpec:
+    """An op-amp from an ``[opamp]`` table (chain-wide) or ``[stage.opamp]`` (per stage):
+    keys not given keep *base*'s values."""
+    if not isinstance(table, dict):
+        raise ConfigError("expected a table", path=path, key=where)
+    _unknown(table, OPAMP_KEYS, where, path)
+    kw = {OPAMP_KEYS[k][0]: parse_value(v, OPAMP_KEYS[k][1], key=f"{where}.{k}", path=path)
+          for k, v in table.items()}
+    a_ol = kw.get("a_ol", base.a_ol)
+    head = kw.get("headroom_v", base.headroom_v)
+    if not a_ol > 1:
+        raise ConfigError("open-loop gain must be above 1", path=path, key=f"{where}.a_ol",
+                          value=a_ol)
+    if head < 0 or base.v_pos_v - head <= base.v_neg_v + head:
+        raise ConfigError("headroom leaves no output swing between the rails", path=path,
+                          key=f"{where}.headroom", value=head)
+    for k in ("ro", "gbw"):
+        v = kw.get(OPAMP_KEYS[k][0])
+        if v is not None and not (v > 0 if k == "gbw" else v >= 0):
+            raise ConfigError("must be above zero" if k == "gbw" else "must be zero or more",
+                              path=path, key=f"{where}.{k}", value=table[k])
+    return replace(base, **kw)
+
+
+def _stage(raw: dict, i: int, path: str, chain_op: OpampSpec | None = None) -> StageSpec:
     where = f"stage[{i}]"
     if not isinstance(raw, dict):
         raise ConfigError("expected a table", path=path, key=where)
@@ -284,7 +306,10 @@ def _stage(raw: dict, i: int, path: str) -> StageSpec:
                           path=path, key=f"{where}.id", value=sid)
     where = f"stage[{i}] ({sid})"
     kind = _req(raw, "kind", where, path)
-    common = {"id", "kind", "channels", "dynamics", "rth", "notes"}
+    common = {"id", "kind", "channels", "dynamics", "rth", "notes", "opamp"}
+    stage_op = None
+    if "opamp" in raw:
+        stage_op = parse_opamp(raw["opamp"], chain_op or OpampSpec(), f"{where}.opamp", path)
     channels = raw.get("channels", [0, 1, 2])
     if (not isinstance(channels, list) or not channels
             or any(c not in (0, 1, 2) for c in channels)):
@@ -315,7 +340,7 @@ def _stage(raw: dict, i: int, path: str) -> StageSpec:
             models[mname] = parse_device({k: v for k, v in m.items() if k != "type"},
                                          m["type"], mk, path)
         spec = StageSpec(sid, kind, {}, None, (), tuple(elements), models, tuple(channels), dyn,
-                         rth)
+                         rth, stage_op)
         # build once now so a bad card is refused at load time
         from livecurve.circuit.userdeck import build_user_stage
         build_user_stage(spec.elements, models, OpampSpec(), name=sid,
@@ -361,7 +386,8 @@ def _stage(raw: dict, i: int, path: str) -> StageSpec:
             raise ConfigError("needs at least one [[stage.legs]] table", path=path,
                               key=f"{where}.legs")
         legs = tuple(_leg(leg, f"{where}.legs[{j}]", path) for j, leg in enumerate(legs_raw))
-    return StageSpec(sid, kind, params, device, legs, (), {}, tuple(channels), dyn, rth)
+    return StageSpec(sid, kind, params, device, legs, (), {}, tuple(channels), dyn, rth,
+                     stage_op)
 
 
 def _leg(raw: dict, where: str, path: str) -> dict:
@@ -386,10 +412,10 @@ def param_unit(stage: StageSpec, name: str, path: str, key: str) -> str:
     """Unit kind of an addressable stage parameter (``r_in``, ``device.is``, ``legs.0.v_bias``,
     or a netlist element name)."""
     if stage.kind == "netlist":
-        from livecurve.circuit.userdeck import element_values
+        from livecurve.circuit.userdeck import CARD_UNITS, element_values
         vals = element_values(stage.elements)
         if name.lower() in vals:
-            return {"R": "ohm", "I": "A", "V": "V", "E": ""}[vals[name.lower()][0]]
+            return CARD_UNITS[vals[name.lower()][0]]
         raise ConfigError(f"no element '{name}' with a value in netlist stage '{stage.id}'",
                           path=path, key=key, value=name)
     sk = KINDS[stage.kind]
@@ -501,9 +527,9 @@ def _live(raw: dict, stages, path: str) -> dict:
 def nominal_value(stage: StageSpec, name: str):
     """The value a stage parameter has as written (before overrides and knobs)."""
     if stage.kind == "netlist":
-        from livecurve.circuit.userdeck import element_values
+        from livecurve.circuit.userdeck import CARD_UNITS, card_value, element_values
         letter, text = element_values(stage.elements)[name.lower()]
-        return parse_value(text, {"R": "ohm", "I": "A", "V": "V", "E": ""}[letter])
+        return card_value(text, CARD_UNITS[letter])
     if name in stage.params:
         return stage.params[name]
     if name.startswith("device."):

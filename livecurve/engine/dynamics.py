@@ -74,9 +74,10 @@ from livecurve.engine import linefilters as _lf
 from livecurve.engine.linefilters import LineFilter, apply_line_filter
 from livecurve.errors import ConfigError
 
-__all__ = ["Section", "StageDynamics", "LineFilter", "discretise", "apply_line_filter",
-           "step_response", "rise_time_s", "overshoot_fraction", "bandwidth_3db_hz", "summary",
-           "pack_block"]
+__all__ = ["Section", "StageDynamics", "SchematicDynamics", "LineFilter", "discretise",
+           "apply_line_filter", "step_response", "rise_time_s", "overshoot_fraction",
+           "bandwidth_3db_hz", "summary", "pack_block", "schematic_dynamics", "stage_dynamics",
+           "figures_at_format", "format_pixel_period_s"]
 
 METHODS = _lf.METHODS
 _TWO_PI = 2.0 * math.pi
@@ -261,6 +262,87 @@ class StageDynamics:
                           math.inf)
 
 
+def stage_dynamics(stage, opamp=None, *, net=None, vin_v: float = 0.0,
+                   t_kelvin: float | None = None):
+    """The line-rate dynamics of one chain stage, or None when it has none.
+
+    A ``[stage.dynamics]`` table (hand figures) wins; otherwise a stage whose schematic has
+    capacitors, inductors or an op-amp with a gain-bandwidth gets
+    :func:`schematic_dynamics` at input *vin_v*.
+
+    Parameters
+    ----------
+    stage : livecurve.config.chainfile.StageSpec
+    opamp : OpampSpec, optional
+        The chain's op-amp (the stage's own ``[stage.opamp]`` overrides it).
+    net : Netlist, optional
+        The stage's netlist as one channel builds it (per-channel overrides and knob
+        values applied, e.g. ``ChainModel.netlist(channel, stage)``); default: the stage
+        as written.
+    """
+    from livecurve.circuit.stages import KINDS, OpampSpec, build_stage
+    from livecurve.circuit.userdeck import build_user_stage
+    d = stage.dynamics
+    if d:
+        ng = d.get("noise_gain")
+        if ng is None:
+            kind = KINDS.get(stage.kind)
+            ng = kind.noise_gain(stage.params) if kind and kind.noise_gain else 1.0
+        try:
+            return StageDynamics(gbw_hz=d.get("gbw"), noise_gain=ng,
+                                 slew_v_per_us=d.get("slew"), f0_hz=d.get("f_ring"),
+                                 zeta=d.get("zeta"), ro_ohm=d.get("ro"), cl_f=d.get("cl"))
+        except ConfigError as exc:
+            raise ConfigError(str(exc), key=f"{stage.id}.dynamics") from None
+    op = stage.opamp or opamp or OpampSpec()
+    if net is not None:
+        pass
+    elif stage.kind == "netlist":
+        net = build_user_stage(stage.elements, stage.models, op, name=stage.id,
+                               key=f"{stage.id}.elements")
+    else:
+        net = build_stage(stage.kind, stage.params, stage.device, op, stage.legs,
+                          name=stage.id)
+    return schematic_dynamics(net, vin_v=vin_v, t_kelvin=t_kelvin)
+
+
+def format_pixel_period_s(fmt: str | None) -> float:
+    """Seconds per pixel of a chain's ``format`` (1080p30's 74.25 MHz for None/"auto")."""
+    from livecurve.signal.timing import get_format
+    return get_format("1080p30" if fmt in (None, "auto") else fmt).pixel_period_s
+
+
+def figures_at_format(dyn, fmt: str | None = None, *, pixel_clock_hz: float | None = None,
+                      step_v: float = 0.7) -> dict:
+    """Bandwidth, rise time and overshoot of a stage as a given video format sees them.
+
+    Parameters
+    ----------
+    dyn : StageDynamics or SchematicDynamics
+    fmt : str, optional
+        Format name (e.g. ``"1080p60"``); None or ``"auto"`` mean 1080p30.  Ignored when
+        *pixel_clock_hz* is given.
+    pixel_clock_hz : float, optional
+        The pixel clock itself, Hz.
+    step_v : float
+        Step for rise time and overshoot, volts.
+
+    Returns
+    -------
+    dict
+        ``pixel_clock_hz``, ``bw_hz`` (−3 dB of the discrete filter), ``rise_s`` (10–90 %),
+        ``overshoot`` (fraction).
+    """
+    if pixel_clock_hz is not None:
+        t = 1.0 / _check_positive("pixel_clock_hz", pixel_clock_hz, optional=False)
+    else:
+        t = format_pixel_period_s(fmt)
+    return {"pixel_clock_hz": 1.0 / t,
+            "bw_hz": bandwidth_3db_hz(dyn, pixel_period_s=t),
+            "rise_s": rise_time_s(dyn, pixel_period_s=t, step_v=step_v),
+            "overshoot": overshoot_fraction(dyn, pixel_period_s=t, step_v=step_v)}
+
+
 def pack_block(*, lin, c, d, end_state, slew=None, dem=None, e_slew_v=0.0, step_v=0.0,
                lin_grid=(), slw_grid=()) -> np.ndarray:
     """One block as a coefficient row (layout in :mod:`livecurve.engine.linefilters`).
@@ -427,6 +509,12 @@ def discretise(dyn: StageDynamics, pixel_period_s: float, *, method: str = "zoh"
     if method not in METHODS:
         raise ConfigError(f"unknown method; accepted: {', '.join(METHODS)}", key="method",
                           value=method)
+    if isinstance(dyn, SchematicDynamics):
+        if method != "zoh":
+            raise ConfigError("schematic dynamics are discretised with method='zoh' only",
+                              key="method", value=method)
+        from livecurve.engine.schematic import schematic_filter
+        return schematic_filter(dyn, t)
     sections = _check_dyn(dyn).sections
     if any(sec.slew_v_per_s is not None for sec in sections) and method != "zoh":
         raise ConfigError("slew-rate limits are discretised with method='zoh' only",
@@ -548,10 +636,14 @@ def summary(dyn: StageDynamics, *, pixel_period_s: float, step_v: float = 0.7) -
         ``overshoot_fraction``, ``memory_samples`` (decay to 1e-4).
     """
     lf = discretise(dyn, pixel_period_s)
-    return {"sections": [s.label for s in dyn.sections],
+    return {"sections": list(lf.labels),
             "bandwidth_3db_hz": bandwidth_3db_hz(dyn, pixel_period_s=pixel_period_s),
             "bandwidth_3db_hz_continuous": dyn.bandwidth_3db_hz,
             "rise_time_s": rise_time_s(dyn, pixel_period_s=pixel_period_s, step_v=step_v),
             "overshoot_fraction": overshoot_fraction(dyn, pixel_period_s=pixel_period_s,
                                                      step_v=step_v),
             "memory_samples": lf.memory_samples(tol=1e-4)}
+
+
+# dynamics derived from a stage's schematic live in their own module (re-exported here)
+from livecurve.engine.schematic import SchematicDynamics, schematic_dynamics  # noqa: E402

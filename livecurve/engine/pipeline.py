@@ -53,23 +53,12 @@ class EngineState:
     temps_k: dict = field(default_factory=dict)
 
 
-def stage_dynamics(stage: StageSpec):
-    """The StageDynamics of a stage's ``dynamics`` table, or None when it has none."""
-    d = stage.dynamics
-    if not d:
-        return None
-    from livecurve.circuit.stages import KINDS
-    from livecurve.engine.dynamics import StageDynamics
-    ng = d.get("noise_gain")
-    if ng is None:
-        kind = KINDS.get(stage.kind)
-        ng = kind.noise_gain(stage.params) if kind and kind.noise_gain else 1.0
-    try:
-        return StageDynamics(gbw_hz=d.get("gbw"), noise_gain=ng, slew_v_per_us=d.get("slew"),
-                             f0_hz=d.get("f_ring"), zeta=d.get("zeta"), ro_ohm=d.get("ro"),
-                             cl_f=d.get("cl"))
-    except ConfigError as exc:
-        raise ConfigError(str(exc), key=f"{stage.id}.dynamics") from None
+def stage_dynamics(stage: StageSpec, opamp=None, net=None):
+    """The stage's line-rate dynamics (hand figures or from its schematic), or None.
+
+    See :func:`livecurve.engine.dynamics.stage_dynamics`."""
+    from livecurve.engine.dynamics import stage_dynamics as _dynamics
+    return _dynamics(stage, opamp, net=net)
 
 
 class FrameEngine:
@@ -128,7 +117,8 @@ class FrameEngine:
                 runs.append(cur)
             cur.stages.append(st)
             cur.knob = cur.knob or knob
-            dyn = stage_dynamics(st)
+            # the channel's own netlist (its overrides, the knobs' starting values)
+            dyn = stage_dynamics(st, self.spec.opamp, self.model.netlist(ch, st, self.state.live))
             if dyn is not None:
                 cur.dynamics = dyn
                 cur = None

@@ -1,5 +1,16 @@
 """Step responses of each channel through the whole chain (tables and line filters), as
-the engine computes them along a scan line: ``livecurve curve --step``."""
+the engine computes them along a scan line: ``livecurve curve --step``.
+
+Time convention (the CSV's ``time_ns`` column): the input is one value per pixel, held
+for the whole pixel period T (a zero-order hold, as video arrives).  The step is at
+t = 0: pixels before it hold ``from_v``, the pixel starting at t = 0 and all later ones
+hold ``to_v``.  Each output sample is the stage's continuous output at the *end* of its
+pixel (:mod:`livecurve.engine.dynamics`), so output row n of the line is written at
+t = (n − lead + 1)·T: the first row at t > 0 is t = T, one pixel period after the step, and
+the row at t = 0 is the settled level just before it.  Read this way the CSV is a
+sampling of the continuous response to an ideal step at t = 0 (what an ngspice ``.tran``
+of the same circuit with a step at t = 0 gives at those instants).
+"""
 
 from __future__ import annotations
 
@@ -21,8 +32,9 @@ def step_responses(spec: ChainSpec, *, samples: int = 400, lead: int = 40,
     """Each channel's response to a step from *from_v* to *to_v* (centred volts) on one line.
 
     The line is sampled at the pixel clock of *fmt* (default: the chain's format, or 1080p30
-    when the chain leaves it to the clip).  Returns (time_s (N,), out (3, N)); time 0 is
-    the step.
+    when the chain leaves it to the clip).  Returns (time_s (N,), out (3, N)): the step is
+    at time 0 and each output is taken at the end of its pixel (module docstring), so
+    time_s[n] = (n − lead + 1)·T.
     """
     check_space(spec.space)
     f = get_format(fmt or (spec.format if spec.format != "auto" else "1080p30"))
@@ -30,7 +42,7 @@ def step_responses(spec: ChainSpec, *, samples: int = 400, lead: int = 40,
     line = np.full((3, 1, samples), from_v, dtype=np.float32)
     line[:, :, lead:] = to_v
     out = eng.process(line)
-    t = (np.arange(samples) - lead) * f.pixel_period_s
+    t = (np.arange(samples) - lead + 1) * f.pixel_period_s
     return t, out[:, 0, :].astype(np.float64)
 
 
