@@ -91,10 +91,9 @@ def _fmt_params(st, values: dict | None = None) -> str:
 def dynamics_figures(dyn, pixel_period_s: float) -> dict:
     """−3 dB bandwidth (Hz), 10–90 % rise time (s) and overshoot (fraction) of a stage at
     the pixel clock 1/*pixel_period_s*."""
-    from livecurve.engine import dynamics as d
-    return {"bw_hz": d.bandwidth_3db_hz(dyn, pixel_period_s=pixel_period_s),
-            "rise_s": d.rise_time_s(dyn, pixel_period_s=pixel_period_s, step_v=0.7),
-            "overshoot": d.overshoot_fraction(dyn, pixel_period_s=pixel_period_s, step_v=0.7)}
+    from livecurve.engine.dynamics import figures_at_format
+    f = figures_at_format(dyn, pixel_clock_hz=1.0 / pixel_period_s, step_v=0.7)
+    return {k: f[k] for k in ("bw_hz", "rise_s", "overshoot")}
 
 
 def chain_timing(spec: ChainSpec):
@@ -236,7 +235,7 @@ def chain_summary(spec: ChainSpec, engine=None, *, pixel_period_s: float | None 
         for st in stages:
             lines.append(f"    - {st.id:<12} {st.kind:<18} "
                          f"{_fmt_params(st, m.values(ch, st))}")
-            dyn = stage_dynamics(st)
+            dyn = stage_dynamics(st, spec.opamp, m.netlist(ch, st))
             if dyn is not None:
                 f = dynamics_figures(dyn, period)
                 bw = ("above the pixel-clock Nyquist" if not np.isfinite(f["bw_hz"])
