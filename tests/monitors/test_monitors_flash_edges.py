@@ -18,7 +18,7 @@ livecurve/monitors/flash.py for the caveat):
 The meter is fed per-cell linear R, G, B (cd/m²) directly, bypassing the display EOTF
 table (whose interpolation is off by ~1e-3 cd/m²), so that each threshold can be met
 exactly in float64; everything after the cell levels (luminance, ratio, swings, 1 s
-window, area, verdict) is the meter's own code.  "Just below/above" is 0.01 of the
+window, area, verdict) is the meter's own code.  "Just below/above" is 1e-6 of the
 threshold's unit.
 """
 
@@ -32,7 +32,7 @@ from livecurve.monitors.flash import FlashMeter
 FPS = 30.0
 ROWS, COLS = 9, 16          # the meter's default grid: 144 cells of equal area
 N_CELLS = ROWS * COLS
-EPS = 0.01
+EPS = 1e-6
 
 
 class _CellMeter(FlashMeter):
