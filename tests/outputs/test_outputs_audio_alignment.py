@@ -21,6 +21,7 @@ import pytest
 
 from livecurve.config.chainfile import load_chain
 from livecurve.media import _ffmpeg
+from livecurve.media.probe import probe
 from livecurve.outputs.demo import chain_path
 from livecurve.outputs.render import render
 
@@ -97,3 +98,7 @@ def test_render_from_start_carries_audio_from_start(tmp_path, chirp_clip, start_
     # to within one packet at either end
     span = (SECONDS - start_s) if duration_s is None else duration_s
     assert abs(got.size - span * RATE) <= 2 * AUDIO_FRAME, (got.size, span * RATE)
+    # the pictures are all there too (25 frame/s source): the audio trim drops no frame
+    # (which frame a start between two frames begins on is the frame loop's business)
+    info = probe(out)
+    assert abs(info.n_frames - span * 25) <= 1, (info.n_frames, span * 25)
