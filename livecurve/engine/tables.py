@@ -239,9 +239,10 @@ def apply_table(plane: np.ndarray, table: Table, *, control=None, out=None) -> n
     if out is None:
         out = np.empty_like(plane)
     lo = np.float32(table.lo_v)
+    hi = np.float32(table.hi_v)
     inv = np.float32((table.n - 1) / (table.hi_v - table.lo_v))
     if not table.is_2d:
-        _lut1d(plane, table.values, lo, inv, out)
+        _lut1d(plane, table.values, lo, hi, inv, out)
         return out
     if control is None:
         control = 0.5 * (table.c_lo + table.c_hi)
@@ -253,21 +254,27 @@ def apply_table(plane: np.ndarray, table: Table, *, control=None, out=None) -> n
     if c.ndim == 1:
         if c.shape[0] != h:
             raise ValueError("control per row must have one value per row")
-        _lut2d_rows(plane, vt, lo, inv, table.control_pos(c), out)
+        _lut2d_rows(plane, vt, lo, hi, inv, table.control_pos(c), out)
         return out
     if c.shape != plane.shape:
         raise ValueError("control per pixel must have the plane's shape")
-    _lut2d_pixels(plane, vt, lo, inv, table.control_pos(c), out)
+    _lut2d_pixels(plane, vt, lo, hi, inv, table.control_pos(c), out)
     return out
 
 
 @nb.njit(cache=True, parallel=True, fastmath=True)
-def _lut1d(x, t, lo, inv, out):
+def _lut1d(x, t, lo, hi, inv, out):
+    # At or beyond hi the position (x − lo)·inv can round to just below the last grid
+    # point in float32; the top end is therefore decided on x itself and reads the last
+    # value exactly (the low end is exact already: p clamps to 0, f = 0).
     h, w = x.shape
     top = t.shape[0] - 1
     last = np.float32(top)
     for r in nb.prange(h):
         for c in range(w):
+            if x[r, c] >= hi:
+                out[r, c] = t[top]
+                continue
             p = (x[r, c] - lo) * inv
             p = min(max(p, np.float32(0.0)), last)
             i = min(int(p), top - 1)  # p == top reads the last interval at f = 1
@@ -276,7 +283,7 @@ def _lut1d(x, t, lo, inv, out):
 
 
 @nb.njit(cache=True, parallel=True, fastmath=True)
-def _lut2d_rows(x, t, lo, inv, cpos, out):
+def _lut2d_rows(x, t, lo, hi, inv, cpos, out):
     # t is laid out (M, N): the two curves a row needs are two contiguous rows of t
     h, w = x.shape
     top = t.shape[1] - 1
@@ -288,6 +295,9 @@ def _lut2d_rows(x, t, lo, inv, cpos, out):
         t0 = t[j]
         t1 = t[j + 1]
         for c in range(w):
+            if x[r, c] >= hi:  # top end decided on x (see _lut1d)
+                out[r, c] = t0[top] + g * (t1[top] - t0[top])
+                continue
             p = (x[r, c] - lo) * inv
             p = min(max(p, np.float32(0.0)), last)
             i = min(int(p), top - 1)
@@ -298,7 +308,7 @@ def _lut2d_rows(x, t, lo, inv, cpos, out):
 
 
 @nb.njit(cache=True, parallel=True, fastmath=True)
-def _lut2d_pixels(x, t, lo, inv, cpos, out):
+def _lut2d_pixels(x, t, lo, hi, inv, cpos, out):
     h, w = x.shape
     top = t.shape[1] - 1
     last = np.float32(top)
@@ -306,6 +316,9 @@ def _lut2d_pixels(x, t, lo, inv, cpos, out):
         for c in range(w):
             j = min(int(cpos[r, c]), t.shape[0] - 2)
             g = cpos[r, c] - np.float32(j)
+            if x[r, c] >= hi:  # top end decided on x (see _lut1d)
+                out[r, c] = t[j, top] + g * (t[j + 1, top] - t[j, top])
+                continue
             p = (x[r, c] - lo) * inv
             p = min(max(p, np.float32(0.0)), last)
             i = min(int(p), top - 1)

@@ -20,8 +20,8 @@ for uint16.
 
 Audio is carried across untouched: the chosen span of the first audio stream of
 ``audio_from`` is stream-copied (``-c:a copy``), so its packets are bit-identical
-to the source's.  A copy starts on a packet boundary at or before
-``audio_start_s``.
+to the source's.  A copy starts on the first packet boundary at or after
+``audio_start_s`` (within one audio frame of it, whatever the container).
 
 Output goes through :func:`livecurve.media.atomic.atomic_output`: a failure,
 an exception in the caller's block or Ctrl-C leaves neither the output nor a
@@ -203,17 +203,26 @@ class ClipWriter:
         rate = f"{self.fps.numerator}/{self.fps.denominator}"
         cmd = ["-hide_banner", "-nostdin", "-v", "error", "-y",
                "-f", "rawvideo", "-pix_fmt", pix_in, "-s", f"{self.width}x{self.height}",
-               "-framerate", rate, "-i", "pipe:0"]
+               "-framerate", rate]
+        start = self._audio[1] if self._audio else 0.0
+        if start > 0:
+            # The pictures are placed at the audio's start time and the output is trimmed
+            # to it (output -ss, below): the copied audio then starts at the first source
+            # packet at or after the start time, on every container.  A seek on the audio
+            # input would land on the container's index point instead (Matroska cues can
+            # be hundreds of ms before it).  Both options get the same digits.
+            cmd += ["-itsoffset", f"{start:.6f}"]
+        cmd += ["-i", "pipe:0"]
         if self._audio:
-            src, start, dur = self._audio
-            if start > 0:
-                cmd += ["-ss", f"{start:.6f}"]
+            src, _, dur = self._audio
             if dur is not None:
-                cmd += ["-t", f"{float(dur):.6f}"]
+                cmd += ["-t", f"{start + float(dur):.6f}"]
             cmd += ["-i", src]
         cmd += ["-map", "0:v:0"]
         if self._audio:
             cmd += ["-map", "1:a:0", "-c:a", "copy"]
+        if start > 0:
+            cmd += ["-ss", f"{start:.6f}"]
         if self.codec == "h264":
             tags = _TAGS[self.matrix]
             cmd += ["-vf", f"scale=out_color_matrix={self.matrix}:out_range=tv,format=yuv420p",

@@ -35,8 +35,10 @@ from tests.circuit._spice_run import ngspice_chain_sweep
 
 K_B, Q_E = 1.38064852e-23, 1.6021766208e-19  # CODATA 2014, as ngspice 39
 ROOT = __import__("pathlib").Path(__file__).resolve().parents[2]
-#: The issue's bound for livecurve against ngspice on drift curves, volts.
-SPICE_TOL_V = 0.5e-3
+#: livecurve against ngspice on drift curves, volts: measured here 0.06 µV (log chain) and
+#: 0.11 µV (night_knee) at 0 °C, 25 °C and 50 °C with the decks' RELTOL = 1e-7; held at
+#: 0.5 µV (a margin of ×4.5 over the worst).
+SPICE_TOL_V = 0.5e-6
 
 
 def _log_chain(points_from="0.1V", points_to="1V"):

@@ -59,7 +59,7 @@ def _allowed(table):
 
 @pytest.mark.parametrize("kind", list(KINDS))
 def test_table_1d_matches_solver(kind):
-    @settings(max_examples=12, deadline=None, derandomize=True)
+    @settings(max_examples=12, deadline=None)
     @given(stage=stages(kind), seed=st.integers(0, 2**32 - 1))
     def check(stage, seed):
         def fn(v):
@@ -80,6 +80,26 @@ def test_table_1d_matches_solver(kind):
         np.testing.assert_array_equal(ends, table.values[[0, 0, -1, -1]])
 
     check()
+
+
+@settings(max_examples=300, deadline=None)
+@given(lo=st.floats(-3.0, 1.0), span=st.floats(0.01, 4.0),
+       shape=st.tuples(st.floats(-3, 3), st.floats(-5, 5), st.floats(-3, 3)))
+def test_table_ends_are_exact(lo, span, shape):
+    """Inputs at or beyond either end of the domain read the end values exactly (1-D, and
+    2-D per row and per pixel at the low control end, where the control weight is 0 and
+    the control axis adds no rounding), for any float32 rounding of the domain ends.  Hypothesis
+    searches freely (no fixed seed): before the kernel decided the top end on x itself,
+    about one random table in ten came out one float32 step off at hi_v."""
+    a, b, k = shape
+    hi = lo + span
+    t1 = build_table_1d(lambda v: a * np.tanh(b * v) + k * v, lo, hi)
+    x = np.array([[lo - 1, lo, hi, hi + 1]], dtype=np.float32)
+    np.testing.assert_array_equal(apply_table(x, t1)[0], t1.values[[0, 0, -1, -1]])
+    t2 = build_table_2d(lambda v, c: a * np.tanh(b * c * v) + k * v, lo, hi, 0.5, 2.0)
+    want = t2.by_control()[0, [0, 0, -1, -1]]  # end values of the low control curve
+    for ctl in (np.array([0.5]), np.full((1, 4), 0.5)):
+        np.testing.assert_array_equal(apply_table(x, t2, control=ctl)[0], want)
 
 
 def test_table_1d_reaches_target_on_smooth_stages():

@@ -131,8 +131,9 @@ def test_slew_limited_stage_matches_ngspice(ngspice, tmp_path):
 
 # Ro·CL inside the loop (TI SLOA013).  The model assumes the feedback resistors do
 # not load the output (Rf + Rin ≫ Ro); with 30 kΩ against 50 Ω that leaves ~0.2 %,
-# which is what remains (measured ~9e-4 linear, ~1.5e-3 with slewing, where
-# mode changes put on a T/32 grid add their share).
+# which is what remains (measured 8.5e-4 linear, 1.45e-3 with slewing, where
+# mode changes put on a T/32 grid add their share).  Each check holds its measured
+# figure with a 40 % margin: 1.2e-3 and 2.0e-3 of the step.
 RO_CL = {"ro_ohm": 50.0, "cl_f": 530e-12}
 OUTPUT_RO_CL = "E1 nb 0 n1 0 1\nRO nb out 50\nCL out 0 530p"
 
@@ -146,7 +147,7 @@ def test_capacitive_load_ringing_matches_ngspice(ngspice, tmp_path):
     overshoot = -ref.min() / 0.2 - 1.0
     # ζ = 0.3 → exp(−ζπ/√(1−ζ²)) = 37.2 % (control-theory texts): ngspice rings so too
     assert overshoot == pytest.approx(math.exp(-0.3 * math.pi / math.sqrt(0.91)), abs=0.01)
-    assert err < 5e-3
+    assert err < 1.2e-3  # measured 8.5e-4
 
 
 def test_capacitive_load_with_slewing_matches_ngspice(ngspice, tmp_path):
@@ -155,7 +156,7 @@ def test_capacitive_load_with_slewing_matches_ngspice(ngspice, tmp_path):
     err, _ = _compare(ngspice, tmp_path, dyn, r_in=10e3, r_f=20e3,
                       steps=[(STEP_AT, 0.35), (30, -0.1)], slew_v_per_us=20.0,
                       output=OUTPUT_RO_CL)
-    assert err < 5e-3
+    assert err < 2.0e-3  # measured 1.45e-3
 
 
 def test_slewing_stage_with_following_resonance_matches_ngspice(ngspice, tmp_path):
