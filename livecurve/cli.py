@@ -219,11 +219,11 @@ def cmd_spread(args) -> int:
     from livecurve.media.atomic import atomic_folder, check_folder_target
     check_folder_target(args.out, SPREAD_FILES, force=args.force)
     spec = _chain(args.chain)
+    scheduler = _spread_scheduler(args)  # a bad address is refused before any folder
     with atomic_folder(args.out, SPREAD_FILES, force=args.force) as tmp:
         rep = run_spread(spec, trials=args.trials, seed=args.seed, csv=tmp / SPREAD_FILES[0],
                          json=tmp / SPREAD_FILES[1], png=tmp / SPREAD_FILES[2],
-                         progress=not args.quiet, force=True,
-                         scheduler=_spread_scheduler(args))
+                         progress=not args.quiet, force=True, scheduler=scheduler)
     print("\n".join(line.replace(str(tmp), str(args.out)) for line in rep.lines()))
     return 0
 

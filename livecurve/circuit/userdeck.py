@@ -27,7 +27,7 @@ import functools
 import re
 
 from livecurve.circuit.devices import BjtModel, DiodeModel
-from livecurve.circuit.netlist import Netlist
+from livecurve.circuit.netlist import GROUND, Netlist
 from livecurve.circuit.stages import OpampSpec
 from livecurve.errors import ConfigError
 from livecurve.units import parse_value
@@ -141,12 +141,14 @@ def build_user_stage(lines, models: dict, op: OpampSpec, *, name: str, key: str,
 def _check_dc_paths(lines, *, path, key) -> None:
     """Refuse a node no DC path joins to ground (node 0): its voltage is undefined, so the
     DC solver cannot converge there.  Resistors, voltage sources, controlled-source
-    outputs, diodes and transistors carry DC; a current source does not; an op-amp output
+    outputs, diodes, transistors and inductors carry DC; a current source and a capacitor
+    do not; an op-amp output
     is driven against ground.  The message names the node and the elements on it."""
-    adj: dict[str, set] = {"0": set(), "in": {"0"}}
+    adj: dict[str, set] = {"0": {"in"}, "in": {"0"}}  # the input source drives 'in'
     on_node: dict[str, list] = {}
 
     def join(a, b):
+        a, b = ("0" if a in GROUND else a), ("0" if b in GROUND else b)
         adj.setdefault(a, set()).add(b)
         adj.setdefault(b, set()).add(a)
 
@@ -156,11 +158,12 @@ def _check_dc_paths(lines, *, path, key) -> None:
             continue
         letter, f = card[0][0].upper(), card[1:]
         terms = {"R": f[:2], "V": f[:2], "I": f[:2], "E": f[:4], "D": f[:2], "Q": f[:3],
-                 "U": f[:3]}.get(letter, [])
+                 "U": f[:3], "C": f[:2], "L": f[:2]}.get(letter, [])
         for n in terms:
+            n = "0" if n in GROUND else n
             adj.setdefault(n, set())
             on_node.setdefault(n, []).append(card[0])
-        if letter in ("R", "V", "D"):
+        if letter in ("R", "V", "D", "L"):  # an inductor is a short at DC, a capacitor open
             join(f[0], f[1])
         elif letter == "E":
             join(f[0], f[1])

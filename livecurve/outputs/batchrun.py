@@ -282,11 +282,14 @@ def _frame_of(path: Path, kind: str) -> np.ndarray | None:
     return (rgb >> 8).astype(np.uint8) if rgb.dtype == np.uint16 else rgb
 
 
+#: Contact-sheet background and label colours (BGR, 8-bit).
+SHEET_BG_BGR, SHEET_TEXT_BGR = (28, 24, 22), (225, 225, 225)
+
+
 def contact_sheet(out: Path, items, rows) -> np.ndarray:
     """The contact sheet as a BGR uint8 picture: a tile per item, its name under it."""
     import cv2
 
-    from livecurve.outputs.plots import BG_BGR, TEXT_BGR
     font = cv2.FONT_HERSHEY_SIMPLEX
     tiles = []
     for it, row in zip(items, rows, strict=True):
@@ -302,15 +305,15 @@ def contact_sheet(out: Path, items, rows) -> np.ndarray:
                              interpolation=cv2.INTER_AREA)
         name = Path(it.output).stem
         lines = [name[k:k + 30] for k in range(0, len(name), 30)][:4]
-        label = np.full((14 * len(lines) + 8, THUMB_W, 3), BG_BGR, np.uint8)
+        label = np.full((14 * len(lines) + 8, THUMB_W, 3), SHEET_BG_BGR, np.uint8)
         for j, ln in enumerate(lines):
-            cv2.putText(label, ln, (3, 14 + 14 * j), font, 0.36, TEXT_BGR, 1, cv2.LINE_AA)
+            cv2.putText(label, ln, (3, 14 + 14 * j), font, 0.36, SHEET_TEXT_BGR, 1, cv2.LINE_AA)
         tiles.append(np.concatenate([pic, label], axis=0))
     cols = min(len(tiles), max(1, math.ceil(math.sqrt(len(tiles)))), 6)
     th = max(t.shape[0] for t in tiles)
     gap = 6
     nrows = math.ceil(len(tiles) / cols)
-    sheet = np.full((nrows * (th + gap) + gap, cols * (THUMB_W + gap) + gap, 3), BG_BGR,
+    sheet = np.full((nrows * (th + gap) + gap, cols * (THUMB_W + gap) + gap, 3), SHEET_BG_BGR,
                     np.uint8)
     for k, t in enumerate(tiles):
         r, c = divmod(k, cols)

@@ -96,7 +96,10 @@ def test_table_ends_are_exact(lo, span, shape):
     t1 = build_table_1d(lambda v: a * np.tanh(b * v) + k * v, lo, hi)
     x = np.array([[lo - 1, lo, hi, hi + 1]], dtype=np.float32)
     np.testing.assert_array_equal(apply_table(x, t1)[0], t1.values[[0, 0, -1, -1]])
-    t2 = build_table_2d(lambda v, c: a * np.tanh(b * c * v) + k * v, lo, hi, 0.5, 2.0)
+    # ends, not accuracy, are under test here: a 1 mV goal keeps the steepest random surfaces
+    # inside the 2-D build's work bound (engine.tables.MAX_SOLVES_2D)
+    t2 = build_table_2d(lambda v, c: a * np.tanh(b * c * v) + k * v, lo, hi, 0.5, 2.0,
+                        target_v=1e-3)
     want = t2.by_control()[0, [0, 0, -1, -1]]  # end values of the low control curve
     for ctl in (np.array([0.5]), np.full((1, 4), 0.5)):
         np.testing.assert_array_equal(apply_table(x, t2, control=ctl)[0], want)
