@@ -193,6 +193,37 @@ class FrameFlow:
                 out[cs.drives] = cmap.values_at(t)
         return out
 
+    def can_fuse(self) -> bool:
+        """True when frames may go through the one-pass Y′CbCr kernel
+        (:mod:`livecurve.engine.fused`): tables, not the solver, and no per-pixel control."""
+        return not self.engine.exact and all(cs.rate != "pixel" for cs, _ in self.controls)
+
+    def process_planes(self, y: np.ndarray, cb: np.ndarray, cr: np.ndarray, frame_index: int,
+                       *, in_legal: bool = True, out=None):
+        """Run one frame of 8-bit Y′CbCr planes through the chain in one pass per line
+        (:class:`livecurve.engine.fused.FusedChain`); returns legal-range (y, cb, cr) planes,
+        *out* when given.  The clip's matrix must be :attr:`standard`."""
+        from livecurve.engine.fused import FusedChain
+        fc = getattr(self, "_fused", None)
+        if fc is None or fc.in_legal != bool(in_legal):
+            fc = self._fused = FusedChain(self.engine, space=self.spec.space,
+                                          standard=self.standard,
+                                          converter_bits=self.spec.converter_bits,
+                                          converter_legal=self.spec.converter_legal,
+                                          in_legal=in_legal)
+        if out is None:
+            out = (np.empty_like(y), np.empty_like(cb), np.empty_like(cr))
+        if self.bypass:
+            for a, b in zip((y, cb, cr), out, strict=True):
+                np.copyto(b, a)
+            return out
+        if self.follower is not None:
+            self.follower.maybe_update(self.engine, frame_index / self.fps)
+        ctl = self.control_values(frame_index)
+        self.last_controls = ctl
+        fc.engine = self.engine
+        return fc.process(y, cb, cr, controls=ctl, out=out)
+
     def process(self, rgb: np.ndarray, frame_index: int) -> np.ndarray:
         """Run one decoded frame through the chain; returns the output R′G′B′ codes
         (a buffer reused on the next call)."""
