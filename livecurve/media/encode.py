@@ -241,7 +241,12 @@ class ClipWriter:
         rate = f"{self.fps.numerator}/{self.fps.denominator}"
         cmd = ["-hide_banner", "-nostdin", "-v", "error", "-y",
                "-f", "rawvideo", "-pix_fmt", pix_in, "-s", f"{self.width}x{self.height}",
-               "-framerate", rate, "-i", "pipe:0"]
+               "-framerate", rate]
+        if self.layout is not None:
+            # say what the planes are, so ffmpeg converts nothing on the way to the encoder
+            cmd += ["-color_range", "tv"] + [x for k, v in _TAGS[self.matrix].items()
+                                             for x in (f"-{k}", v)]
+        cmd += ["-i", "pipe:0"]
         if self._audio:
             src, start, dur = self._audio
             if start > 0:
