@@ -224,10 +224,37 @@ class FrameFlow:
         fc.engine = self.engine
         return fc.process(y, cb, cr, controls=ctl, out=out)
 
+    def view_planes(self, planes_in, planes_out, *, step: int = 2, in_legal: bool = True,
+                    source_rgb: bool = True):
+        """After :meth:`process_planes`: point :attr:`planes_in`, :attr:`planes_out` and
+        :attr:`rgb_out` at every *step*-th line and sample of the frame (volts, and R′G′B′
+        codes through the output converter's matrix), for the window's picture and
+        monitors at a fixed cost.  Returns the source's R′G′B′ at the same size (or
+        :attr:`rgb_out` when *source_rgb* is False)."""
+        from livecurve.engine.fused import sampled_volts
+        sp, std = self.spec.space, self.standard
+        self.planes_in = sampled_volts(*planes_in, space=sp, standard=std, step=step,
+                                       in_legal=in_legal)
+        self.planes_out = sampled_volts(*planes_out, space=sp, standard=std, step=step)
+        # the output planes hold the converter's codes already: a 16-bit converter only
+        # carries them on to the 8-bit R′G′B′ word (no second visible rounding)
+        self.rgb_out = volts_to_codes(self.planes_out, space=sp, standard=std,
+                                      converter_bits=16, converter_legal=True,
+                                      out_dtype=np.uint8)
+        if not source_rgb:
+            return self.rgb_out
+        return volts_to_codes(self.planes_in, space=sp, standard=std, converter_bits=16,
+                              converter_legal=True, out_dtype=np.uint8)
+
     def process(self, rgb: np.ndarray, frame_index: int) -> np.ndarray:
         """Run one decoded frame through the chain; returns the output R′G′B′ codes
         (a buffer reused on the next call)."""
         bits = None
+        h, w = rgb.shape[:2]
+        if self.planes_in.shape != (3, h, w):   # after view_planes pointed them elsewhere
+            self.planes_in = np.empty((3, h, w), dtype=np.float32)
+            self.planes_out = np.empty((3, h, w), dtype=np.float32)
+            self.rgb_out = np.empty((h, w, 3), dtype=self.out_dtype)
         codes_to_volts(rgb, space=self.spec.space, standard=self.standard, bits=bits,
                        out=self.planes_in)
         if self.bypass:
