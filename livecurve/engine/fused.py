@@ -109,16 +109,22 @@ class FusedChain:
         self._m_out = rgb_to_ypbpr_matrix(standard)
         self._off = np.array(centre_offsets_v(space), dtype=np.float64)
         self._key = None
+        self._shape_key = None
         self._luts = None
 
     # ---- packing -------------------------------------------------------------------------
     def _pack(self) -> None:
         """Gather every run's table and filter into flat arrays (when they changed)."""
         eng = self.engine
-        key = tuple(tuple((id(r.table), id(r.line_filter), r.blank_out_v) for r in rs)
-                    for rs in eng.runs)
-        if key == self._key:
+        # the objects themselves, compared by identity (an id() can be reused once the
+        # old table is freed)
+        key = [(r.table, r.line_filter, r.blank_out_v) for rs in eng.runs for r in rs]
+        if self._key is not None and len(key) == len(self._key) and all(
+                a[0] is b[0] and a[1] is b[1] and a[2] == b[2]
+                for a, b in zip(key, self._key, strict=True)) \
+                and [len(rs) for rs in eng.runs] == self._shape_key:
             return
+        self._shape_key = [len(rs) for rs in eng.runs]
         tabs, coefs, rows = [], [], []
         chan_runs = np.full((3, max(1, max(len(rs) for rs in eng.runs))), -1, np.int64)
         n_tab = n_lf = n_2d = 0
