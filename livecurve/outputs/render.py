@@ -5,6 +5,12 @@ copied across untouched; stills and image sequences written as ``.png``/``.tif``
 lossless and 16-bit, so a frame can be compared exactly.  Every output is written to a
 temporary file and renamed only when complete (``media.atomic``); an error or Ctrl-C
 leaves no partial output.
+
+An h264 render of an 8-bit Y′CbCr clip whose matrix is the chain's stays in Y′CbCr: the
+clip is decoded as its planes, each frame goes through the chain in one pass per line
+(:mod:`livecurve.engine.fused`) and the planes are encoded as they are, with decoding,
+processing and encoding overlapped (:func:`run_overlapped`).  Everything else (``--exact``,
+per-pixel controls, ffv1, stills, side by side, deeper sources) takes the R′G′B′ path.
 """
 
 from __future__ import annotations
