@@ -220,9 +220,10 @@ class _Stage(threading.Thread):
             self.error = exc
 
 
-def _put(q: queue.Queue, item, stop: threading.Event) -> bool:
-    """Put *item* unless *stop* is set first; False when stopped."""
-    while not stop.is_set():
+def _put(q: queue.Queue, item, stop: threading.Event, consumer=None) -> bool:
+    """Put *item* unless *stop* is set (or the *consumer* thread has died) first; False
+    when it was not put."""
+    while not stop.is_set() and (consumer is None or consumer.is_alive()):
         try:
             q.put(item, timeout=0.1)
             return True
@@ -297,12 +298,12 @@ def run_overlapped(src, flow: FrameFlow, writer, *, flash=None, progress=None,
             flow.process_planes(fr.y, fr.cb, fr.cr, fr.index, in_legal=in_legal, out=planes)
             if flash is not None:
                 flash.push(flash_volts(flow, planes))
-            if not _put(q_out, (fr.index, planes), stop) or not enc.is_alive():
+            if not _put(q_out, (fr.index, planes), stop, enc):
                 break
             done += 1
             if progress is not None:
                 progress.update(done)
-        _put(q_out, _END, stop)
+        _put(q_out, _END, stop, enc)
         enc.join()
     finally:
         stop.set()
