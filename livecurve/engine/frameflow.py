@@ -193,10 +193,68 @@ class FrameFlow:
                 out[cs.drives] = cmap.values_at(t)
         return out
 
+    def can_fuse(self) -> bool:
+        """True when frames may go through the one-pass Y′CbCr kernel
+        (:mod:`livecurve.engine.fused`): tables, not the solver, and no per-pixel control."""
+        return not self.engine.exact and all(cs.rate != "pixel" for cs, _ in self.controls)
+
+    def process_planes(self, y: np.ndarray, cb: np.ndarray, cr: np.ndarray, frame_index: int,
+                       *, in_legal: bool = True, out=None):
+        """Run one frame of 8-bit Y′CbCr planes through the chain in one pass per line
+        (:class:`livecurve.engine.fused.FusedChain`); returns legal-range (y, cb, cr) planes,
+        *out* when given.  The clip's matrix must be :attr:`standard`."""
+        from livecurve.engine.fused import FusedChain
+        fc = getattr(self, "_fused", None)
+        if fc is None or fc.in_legal != bool(in_legal):
+            fc = self._fused = FusedChain(self.engine, space=self.spec.space,
+                                          standard=self.standard,
+                                          converter_bits=self.spec.converter_bits,
+                                          converter_legal=self.spec.converter_legal,
+                                          in_legal=in_legal)
+        if out is None:
+            out = (np.empty_like(y), np.empty_like(cb), np.empty_like(cr))
+        if self.bypass:
+            for a, b in zip((y, cb, cr), out, strict=True):
+                np.copyto(b, a)
+            return out
+        if self.follower is not None:
+            self.follower.maybe_update(self.engine, frame_index / self.fps)
+        ctl = self.control_values(frame_index)
+        self.last_controls = ctl
+        fc.engine = self.engine
+        return fc.process(y, cb, cr, controls=ctl, out=out)
+
+    def view_planes(self, planes_in, planes_out, *, step: int = 2, in_legal: bool = True,
+                    source_rgb: bool = True):
+        """After :meth:`process_planes`: point :attr:`planes_in`, :attr:`planes_out` and
+        :attr:`rgb_out` at every *step*-th line and sample of the frame (volts, and R′G′B′
+        codes through the output converter's matrix), for the window's picture and
+        monitors at a fixed cost.  Returns the source's R′G′B′ at the same size (or
+        :attr:`rgb_out` when *source_rgb* is False)."""
+        from livecurve.engine.fused import sampled_volts
+        sp, std = self.spec.space, self.standard
+        self.planes_in = sampled_volts(*planes_in, space=sp, standard=std, step=step,
+                                       in_legal=in_legal)
+        self.planes_out = sampled_volts(*planes_out, space=sp, standard=std, step=step)
+        # the output planes hold the converter's codes already: a 16-bit converter only
+        # carries them on to the 8-bit R′G′B′ word (no second visible rounding)
+        self.rgb_out = volts_to_codes(self.planes_out, space=sp, standard=std,
+                                      converter_bits=16, converter_legal=True,
+                                      out_dtype=np.uint8)
+        if not source_rgb:
+            return self.rgb_out
+        return volts_to_codes(self.planes_in, space=sp, standard=std, converter_bits=16,
+                              converter_legal=True, out_dtype=np.uint8)
+
     def process(self, rgb: np.ndarray, frame_index: int) -> np.ndarray:
         """Run one decoded frame through the chain; returns the output R′G′B′ codes
         (a buffer reused on the next call)."""
         bits = None
+        h, w = rgb.shape[:2]
+        if self.planes_in.shape != (3, h, w):   # after view_planes pointed them elsewhere
+            self.planes_in = np.empty((3, h, w), dtype=np.float32)
+            self.planes_out = np.empty((3, h, w), dtype=np.float32)
+            self.rgb_out = np.empty((h, w, 3), dtype=self.out_dtype)
         codes_to_volts(rgb, space=self.spec.space, standard=self.standard, bits=bits,
                        out=self.planes_in)
         if self.bypass:

@@ -7,11 +7,10 @@ from them by :mod:`livecurve.signal`.
 """
 
 from livecurve.media.atomic import atomic_output, write_still
-from livecurve.media.camera import CameraSource, open_camera
 from livecurve.media.encode import ClipWriter
+from livecurve.media.frame import Frame
 from livecurve.media.probe import MediaInfo, audio_stream, probe, read_image
 from livecurve.media.source import (
-    Frame,
     FrameSource,
     TruncatedMediaWarning,
     open_source,
@@ -32,3 +31,11 @@ __all__ = [
     "read_image",
     "write_still",
 ]
+
+
+def __getattr__(name):
+    # the camera pulls in OpenCV: imported when first asked for, not with the package
+    if name in ("CameraSource", "open_camera"):
+        from livecurve.media import camera
+        return getattr(camera, name)
+    raise AttributeError(f"module 'livecurve.media' has no attribute {name!r}")

@@ -14,6 +14,7 @@ only place that touches a device.
 
 from __future__ import annotations
 
+import contextlib
 import glob
 import time
 
@@ -21,8 +22,8 @@ import cv2
 import numpy as np
 
 from livecurve.errors import DeviceError, MediaError
+from livecurve.media.frame import Frame
 from livecurve.media.probe import MediaInfo
-from livecurve.media.source import Frame
 
 #: Rate assumed when a driver reports none (Hz).
 FALLBACK_FPS = 30.0
@@ -111,6 +112,22 @@ class CameraSource:
         return False
 
 
+@contextlib.contextmanager
+def quiet_library():
+    """Silence OpenCV's own log lines (``[ WARN:0@…] … can't open camera by index``) while a
+    device is opened, so livecurve's message is the first the user reads."""
+    log = getattr(getattr(cv2, "utils", None), "logging", None)
+    if log is None or not hasattr(log, "setLogLevel"):
+        yield
+        return
+    old = log.getLogLevel()
+    log.setLogLevel(log.LOG_LEVEL_SILENT)
+    try:
+        yield
+    finally:
+        log.setLogLevel(old)
+
+
 def _to_rgb(bgr: np.ndarray, name: str) -> np.ndarray:
     if bgr.ndim == 2:
         return np.ascontiguousarray(np.repeat(bgr[:, :, None], 3, axis=2))
@@ -146,7 +163,8 @@ def open_camera(index: int = 0, *, width: int | None = None, height: int | None 
     if isinstance(index, bool) or not isinstance(index, int) or index < 0:
         raise DeviceError(f"camera {index!r}: a camera is a device number 0, 1, 2, ...")
     name = f"camera {index}"
-    cap = cv2.VideoCapture(index)
+    with quiet_library():
+        cap = cv2.VideoCapture(index)
     if not cap.isOpened():
         cap.release()
         present = sorted(glob.glob("/dev/video*"))

@@ -42,6 +42,8 @@ from livecurve.media.atomic import atomic_output, disk_full_error
 from livecurve.media.probe import audio_stream
 
 CODECS = ("h264", "ffv1")
+#: Planar 8-bit legal-range Y′CbCr layouts :meth:`ClipWriter.write_planes` takes.
+_PLANAR = ("yuv420p", "yuv422p", "yuv444p")
 MATRICES = ("bt601", "bt709", "bt2020")
 CONTAINERS = {"h264": (".mp4", ".mov", ".mkv"), "ffv1": (".mkv",)}
 
@@ -89,7 +91,8 @@ class ClipWriter:
     def __init__(self, path, *, width: int, height: int, fps, codec: str = "h264",
                  audio_from=None, audio_start_s: float = 0.0,
                  audio_duration_s: float | None = None, force: bool = False, crf: int = 18,
-                 preset: str = "veryfast", matrix: str = "bt709"):
+                 preset: str = "veryfast", matrix: str = "bt709", layout: str | None = None,
+                 threads: int | None = None):
         self.path = Path(path)
         p = self.path
         if codec not in CODECS:
@@ -113,6 +116,13 @@ class ClipWriter:
             raise OutputError(f"{p}: matrix {matrix!r} is not one of {', '.join(MATRICES)}")
         if isinstance(crf, bool) or not isinstance(crf, int) or not 0 <= crf <= 51:
             raise OutputError(f"{p}: crf {crf!r} must be a whole number 0 … 51")
+        if layout is not None and (codec != "h264" or layout not in _PLANAR):
+            raise OutputError(f"{p}: Y′CbCr planes ({layout!r}) are written as h264 from "
+                              f"{', '.join(_PLANAR)}")
+        if threads is not None and (isinstance(threads, bool) or not isinstance(threads, int)
+                                    or threads < 0):
+            raise OutputError(f"{p}: encoder threads {threads!r} must be a whole number >= 0")
+        self.layout, self.threads = layout, threads
         self.codec, self.matrix, self.crf, self.preset = codec, matrix, crf, str(preset)
         self.force = bool(force)
         self._audio = self._check_audio(audio_from, audio_start_s, audio_duration_s)
@@ -196,10 +206,38 @@ class ClipWriter:
                                 f"{self.frames_written}", exc)
         self.frames_written += 1
 
+    def write_planes(self, y: np.ndarray, cb: np.ndarray, cr: np.ndarray) -> None:
+        """Append one frame given as 8-bit legal-range Y′CbCr planes of the writer's
+        ``layout`` (no conversion: the planes go to the encoder as they are)."""
+        if self._atomic is None:
+            raise OutputError(f"{self.path}: write_planes() outside 'with ClipWriter(...)'")
+        if self.layout is None:
+            raise OutputError(f"{self.path}: write_planes() needs a writer made with layout=")
+        sh = 1 if self.layout in ("yuv420p", "yuv422p") else 0
+        sv = 1 if self.layout == "yuv420p" else 0
+        cshape = ((self.height + sv) >> sv, (self.width + sh) >> sh)
+        for name, a, shape in (("Y′", y, (self.height, self.width)), ("Cb", cb, cshape),
+                               ("Cr", cr, cshape)):
+            if a.shape != shape or a.dtype != np.uint8:
+                raise OutputError(f"{self.path}: frame {self.frames_written}: {name} plane is "
+                                  f"{a.dtype} {a.shape}; expected uint8 {shape}")
+        if self._dtype is None:
+            self._dtype = np.dtype(np.uint8)
+            self._start()
+        try:
+            for a in (y, cb, cr):
+                self._proc.stdin.write(memoryview(np.ascontiguousarray(a)).cast("B"))
+        except (BrokenPipeError, OSError) as exc:
+            self._raise_failure(f"ffmpeg stopped accepting frames at frame "
+                                f"{self.frames_written}", exc)
+        self.frames_written += 1
+
     # -- ffmpeg -------------------------------------------------------------------
     def command(self) -> list[str]:
         """The ffmpeg command line (without the executable) for the current settings."""
         pix_in = "rgb48le" if self._dtype == np.uint16 else "rgb24"
+        if self.layout is not None:
+            pix_in = self.layout
         rate = f"{self.fps.numerator}/{self.fps.denominator}"
         cmd = ["-hide_banner", "-nostdin", "-v", "error", "-y",
                "-f", "rawvideo", "-pix_fmt", pix_in, "-s", f"{self.width}x{self.height}",
@@ -212,6 +250,10 @@ class ClipWriter:
             # input would land on the container's index point instead (Matroska cues can
             # be hundreds of ms before it).  Both options get the same digits.
             cmd += ["-itsoffset", f"{start:.6f}"]
+        if self.layout is not None:
+            # say what the planes are, so ffmpeg converts nothing on the way to the encoder
+            cmd += ["-color_range", "tv"] + [x for k, v in _TAGS[self.matrix].items()
+                                             for x in (f"-{k}", v)]
         cmd += ["-i", "pipe:0"]
         if self._audio:
             src, _, dur = self._audio
@@ -225,9 +267,15 @@ class ClipWriter:
             cmd += ["-ss", f"{start:.6f}"]
         if self.codec == "h264":
             tags = _TAGS[self.matrix]
-            cmd += ["-vf", f"scale=out_color_matrix={self.matrix}:out_range=tv,format=yuv420p",
-                    "-c:v", "libx264", "-preset", self.preset, "-crf", str(self.crf),
+            if self.layout is None:
+                cmd += ["-vf", f"scale=out_color_matrix={self.matrix}:out_range=tv,"
+                               "format=yuv420p"]
+            elif self.layout != "yuv420p":
+                cmd += ["-vf", "format=yuv420p"]
+            cmd += ["-c:v", "libx264", "-preset", self.preset, "-crf", str(self.crf),
                     "-pix_fmt", "yuv420p", "-color_range", "tv"]
+            if self.threads is not None:
+                cmd += ["-threads", str(self.threads)]
             for key, value in tags.items():
                 cmd += [f"-{key}", value]
             if self.path.suffix.lower() in (".mp4", ".mov"):

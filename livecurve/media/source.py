@@ -34,7 +34,6 @@ keeps the number).  A clip that delivers no frame at all raises
 
 from __future__ import annotations
 
-import dataclasses
 import math
 import os
 import subprocess
@@ -44,6 +43,7 @@ import numpy as np
 
 from livecurve.errors import MediaError
 from livecurve.media import _ffmpeg
+from livecurve.media.frame import Frame
 from livecurve.media.probe import (
     DEFAULT_SEQUENCE_FPS,
     MediaInfo,
@@ -57,28 +57,6 @@ _ZIMG_MATRIX = {"bt601": "470bg", "bt709": "709", "bt2020": "2020_ncl"}
 
 class TruncatedMediaWarning(UserWarning):
     """A clip delivered fewer frames than it promised (file cut short or damaged)."""
-
-
-@dataclasses.dataclass(frozen=True, slots=True)
-class Frame:
-    """One decoded picture.
-
-    Attributes
-    ----------
-    index : int
-        Frame number in the source (0 = first frame of the file).
-    time_s : float
-        ``index / fps`` (s).
-    rgb : numpy.ndarray, shape (H, W, 3), uint8 or uint16
-        Full-range R′G′B′ code values, C-contiguous, owned by the caller.
-    lap : int
-        Pass number when looping (0 on the first pass).
-    """
-
-    index: int
-    time_s: float
-    rgb: np.ndarray
-    lap: int = 0
 
 
 def default_matrix(width: int, height: int) -> str:
@@ -278,7 +256,12 @@ class ClipSource(FrameSource):
             return "null"
         if self.exact_colour:
             planar = "gbrp" if self.dtype == np.uint8 else "gbrp16le"
-            return (f"zscale=matrixin={_ZIMG_MATRIX[self.decode_matrix]}"
+            # zimg refuses subsampled chroma on an odd-sized picture: bring the chroma to
+            # full resolution first (ffmpeg's own resampler), then convert exactly
+            pre = ""
+            if (info.width % 2 or info.height % 2) and _subsampled(info.pix_fmt or ""):
+                pre = "format=yuv444p," if self.dtype == np.uint8 else "format=yuv444p16le,"
+            return (f"{pre}zscale=matrixin={_ZIMG_MATRIX[self.decode_matrix]}"
                     f":rangein={'full' if full else 'limited'}:dither=none:filter=bilinear,"
                     f"format={planar}")
         return (f"scale=in_color_matrix={self.decode_matrix}"
@@ -409,6 +392,12 @@ def open_source(spec, *, start_s: float = 0.0, duration_s: float | None = None,
         return ClipSource(info, start_s=start_s, duration_s=duration_s, loop=loop,
                           matrix=matrix, exact_colour=exact_colour)
     return ImageSource(info, start_s=start_s, duration_s=duration_s, loop=loop)
+
+
+def _subsampled(pix_fmt: str) -> bool:
+    """True for Y′CbCr pixel formats whose chroma has fewer samples than luma."""
+    return any(tag in pix_fmt for tag in ("420", "422", "411", "410", "440", "nv12", "nv21",
+                                          "nv16", "p010", "p016", "yuyv", "uyvy"))
 
 
 def _camera_index(spec: str) -> int:

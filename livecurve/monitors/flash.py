@@ -292,8 +292,20 @@ class FlashMeter:
                self.grid[1], self.step, self._sums, self._counts)
         return self._sums / np.maximum(self._counts, 1)[:, None]
 
-    def push(self, planes) -> FlashFrame:
-        """Add one frame (planar (3, H, W) centred volts) and return what it changed."""
+    def push(self, planes, *, index: int | None = None) -> FlashFrame:
+        """Add one frame (planar (3, H, W) centred volts) and return what it changed.
+
+        *index* is the frame's number on the source's own timeline.  Frames left out
+        (a preview that dropped them) then still take their place in the one-second window
+        — as frames without a transition — so rates are counted per second of the source,
+        not per frame received.  Without it, frames are taken as consecutive.
+        """
+        if index is not None:
+            index = int(index)
+            gap = index - self._frames
+            if self._frames and 0 < gap:
+                self._skip(min(gap, self.window_frames))
+                self._frames = index
         if self._shape is not None and np.shape(planes)[1:] != self._shape:
             raise ConfigError("frame size changed during a flash measurement; call reset()",
                               key="planes", value=np.shape(planes))
@@ -330,6 +342,15 @@ class FlashMeter:
                            level=_VERDICTS[level])
         self._frames += 1
         return frame
+
+    def _skip(self, n: int) -> None:
+        """Advance the one-second window over *n* frames that were not seen."""
+        for k in range(n):
+            slot = (self._frames + k) % self.window_frames
+            self._win_g -= self._ring_g[slot]
+            self._win_r -= self._ring_r[slot]
+            self._ring_g[slot] = 0
+            self._ring_r[slot] = 0
 
     def _screen_count(self, flashes: np.ndarray) -> tuple[int, float]:
         """(largest k covered by area_threshold of the screen, share of cells over the limit)."""

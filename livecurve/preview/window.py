@@ -68,6 +68,18 @@ FONT_DIRS = ("/usr/share/fonts/truetype/dejavu", "/usr/share/fonts/truetype",
 WATCH_PERIOD_S = 0.5
 #: Frames the decoder may hold ahead of the window.
 BUFFER_FRAMES = 2
+#: Pictures with more samples than this are shown and scoped from every second line and
+#: sample (planar path): 1080p is read as 960x540, 720p in full.
+VIEW_FULL_MAX_SAMPLES = 1280 * 720
+
+
+#: Samples the planar preview's scopes read per frame at most (a fixed cost per frame).
+SCOPE_SAMPLES = 260_000
+
+
+def view_step(info) -> int:
+    """Lines and samples between those the planar preview's picture and monitors read."""
+    return 1 if info.width * info.height <= VIEW_FULL_MAX_SAMPLES else 2
 
 
 def emit(event: str, stream=None, **fields) -> None:
@@ -334,6 +346,9 @@ class PreviewSession:
         self.error = ""
         self.note = ""
         self.canvas = None
+        self.in_legal = True
+        self._out_planes = None
+        self._scope_step = scope_step
 
     @property
     def spec(self):
@@ -470,7 +485,7 @@ class PreviewSession:
         self._check_live_inputs()
         self.flow.process(rgb, index)
         if new_frame and self._flash is not None and not self.flow.bypass:
-            self._check_flash()
+            self._check_flash(index)
         ctl = {} if self.flow.bypass else self.flow.last_controls
         if new_frame:
             self.composer.push_controls(ctl)
@@ -478,10 +493,13 @@ class PreviewSession:
                                             status=self.status(**status), controls=ctl)
         return self.canvas
 
-    def _check_flash(self) -> None:
-        """Photosensitive-flash estimate (ITU-R BT.1702) on the modulated output: warn in the
-        window and on the console when it rises above ok."""
-        fr = self._flash.push(self.flow.planes_out)
+    def _check_flash(self, index: int, planes=None) -> None:
+        """Photosensitive-flash estimate (ITU-R BT.1702) on the modulated output, on the
+        source's own timeline (frame *index*; dropped frames keep their place, so the verdict
+        is the render's): warn in the window and on the console when it rises above ok."""
+        if planes is None:
+            planes = self.flow.planes_out
+        fr = self._flash.push(planes, index=index)
         verdict = fr.level
         if verdict != self._flash_verdict and verdict != "ok":
             text = (f"FLASH {verdict.upper()}: the modulation makes the picture flash (ITU-R "
@@ -489,6 +507,33 @@ class PreviewSession:
             print(f"livecurve: {text}", file=sys.stderr, flush=True)
             self.note = text
         self._flash_verdict = verdict
+
+    def render_planes(self, fr, index: int, *, new_frame: bool = True,
+                      **status) -> np.ndarray:
+        """As :meth:`render` for a :class:`~livecurve.media.planes.PlaneFrame`: the chain runs
+        in one pass on the planes; the picture and the monitors read every
+        :data:`VIEW_STEP`-th line and sample of them (a fixed cost per frame)."""
+        from livecurve.outputs.render import flash_volts
+        self._check_live_inputs()
+        flow = self.flow
+        if self._out_planes is None or self._out_planes[0].shape != fr.y.shape:
+            self._out_planes = (np.empty_like(fr.y), np.empty_like(fr.cb),
+                                np.empty_like(fr.cr))
+        out = flow.process_planes(fr.y, fr.cb, fr.cr, index, in_legal=self.in_legal,
+                                  out=self._out_planes)
+        src_rgb = flow.view_planes((fr.y, fr.cb, fr.cr), out, step=view_step(self.info),
+                                   in_legal=self.in_legal, source_rgb=self.view.split)
+        if self._scope_step is None:   # scopes read at most SCOPE_SAMPLES samples a frame
+            n = flow.planes_out.shape[1] * flow.planes_out.shape[2]
+            self.composer.scope_step = max(1, math.ceil(math.sqrt(n / SCOPE_SAMPLES)))
+        if new_frame and self._flash is not None and not flow.bypass:
+            self._check_flash(index, flash_volts(flow, out))
+        ctl = {} if flow.bypass else flow.last_controls
+        if new_frame:
+            self.composer.push_controls(ctl)
+        self.canvas = self.composer.compose(src_rgb, flow, view=self.view,
+                                            status=self.status(**status), controls=ctl)
+        return self.canvas
 
     def _check_live_inputs(self) -> None:
         """Report a lost device, overflows or starved reads in the window and on the console
@@ -566,10 +611,11 @@ class _Player:
         # one thread: both at once on two cores would oversubscribe them (results are the
         # same with any number of threads).
         self.numba.set_num_threads(1 if self.rebuilder.busy else self.threads)
-        canvas = s.render(fr.rgb, idx, new_frame=new_frame, frame=fr.index, time_s=fr.time_s,
-                          fps_shown=self.fps_shown(), dropped=self.pump.dropped,
-                          paused=self.paused, ended=self.ended, loop=self.pump.loop,
-                          rebuilding=self.rebuilder.busy)
+        draw_frame = s.render_planes if hasattr(fr, "y") else s.render
+        canvas = draw_frame(fr if hasattr(fr, "y") else fr.rgb, idx, new_frame=new_frame,
+                            frame=fr.index, time_s=fr.time_s, fps_shown=self.fps_shown(),
+                            dropped=self.pump.dropped, paused=self.paused, ended=self.ended,
+                            loop=self.pump.loop, rebuilding=self.rebuilder.busy)
         self.win.show(canvas)
         if new_frame:
             self.shown += 1
@@ -762,7 +808,7 @@ def write_snapshot(session: PreviewSession, fr, output, *, force: bool = False) 
 
 def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), exact=False,
                 monitors=None, max_frames=None, force: bool = False, drift: bool = False,
-                speedup: float | None = None) -> int:
+                speedup: float | None = None, planar: bool = True) -> int:
     """Preview a chain on a source: a live window, or one composite written to a PNG.
 
     Parameters
@@ -826,4 +872,18 @@ def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), ex
     with open_source(source, start_s=start, loop=True) as src:
         session = PreviewSession(chain_path, src.info, controls=controls, exact=exact,
                                  monitors=monitors, drift=drift, speedup=speedup)
+        if planar and planar_ok(session):
+            from livecurve.media.planes import PlaneClipSource, is_full_range
+            src.close()
+            session.in_legal = not is_full_range(src.info)
+            with PlaneClipSource(src.info, start_s=start, loop=True) as psrc:
+                return _Player(cv2, session, psrc, max_frames=max_frames).run()
         return _Player(cv2, session, src, max_frames=max_frames).run()
+
+
+def planar_ok(session: PreviewSession) -> bool:
+    """True when the preview can run on the clip's own Y′CbCr planes (as a render would:
+    :func:`livecurve.outputs.render._planar_layout`) — a chain reload that can no longer be
+    fused (``--exact``, a per-pixel control) falls back per frame."""
+    from livecurve.outputs.render import _planar_layout
+    return session.info.kind == "clip" and _planar_layout(session.info, session.flow) is not None

@@ -82,3 +82,47 @@ def test_drift_follows_the_warm_up(tmp_path):
     # without drift the same frames are identical
     still = FrameFlow(spec, width=64, height=36, fps=30)
     assert np.array_equal(still.process(rgb, 0), still.process(rgb, 300))
+
+
+def _grey_clip(path, n=75):
+    import subprocess
+
+    from livecurve.media import _ffmpeg
+    y = np.full((90, 160), 126, np.uint8).tobytes()
+    c = np.full((45, 80), 128, np.uint8).tobytes()
+    subprocess.run([_ffmpeg.ffmpeg_exe(), "-hide_banner", "-v", "error", "-y", "-f", "rawvideo",
+                    "-pix_fmt", "yuv420p", "-s", "160x90", "-r", "30", "-i", "pipe:0",
+                    "-c:v", "libx264", "-crf", "10", "-colorspace", "bt709", "-color_range",
+                    "tv", str(path)], input=(y + c + c) * n, check=True)
+    return path
+
+
+def test_preview_with_dropped_frames_gives_the_render_verdict(tmp_path):
+    # a 2 Hz square modulation: 2 flashes a second, under the limit of 3 (ITU-R BT.1702,
+    # from memory).  Squeezing every second frame out of the timeline would double it.
+    from livecurve.config.chainfile import load_chain
+    from livecurve.media.planes import PlaneClipSource
+    from livecurve.outputs.render import render
+    clip = _grey_clip(tmp_path / "grey.mp4")
+    control = "knee_current=lfo:square:2Hz:1V"
+    rep = render(load_chain(ROOT / "configs" / "night_knee.toml"), str(clip),
+                 str(tmp_path / "out.mp4"), controls=[control], progress=False)
+    assert rep.flash is not None and rep.flash.startswith("flash check: ok")
+    s = PreviewSession(ROOT / "configs" / "night_knee.toml", probe(str(clip)),
+                       controls=[control])
+    seen = []
+    push = s._flash.push
+    s._flash.push = lambda planes, index=None: seen.append(planes.copy()) or push(
+        planes, index=index)
+    with PlaneClipSource(s.info) as src:
+        shown = [fr for fr in src if fr.index % 2 == 0]         # half the frames dropped
+    for fr in shown:
+        s.render_planes(fr, fr.index, frame=fr.index)
+    assert s._flash.report().verdict == "ok"
+    # the same pictures taken as consecutive frames (what the meter did before it was fed
+    # the source's frame numbers) read twice as many flashes a second
+    from livecurve.monitors.flash import FlashMeter
+    old = FlashMeter(30.0, space="ypbpr", standard="bt709")
+    for planes in seen:
+        old.push(planes)
+    assert old.report().verdict == "hazard"
