@@ -808,7 +808,7 @@ def write_snapshot(session: PreviewSession, fr, output, *, force: bool = False) 
 
 def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), exact=False,
                 monitors=None, max_frames=None, force: bool = False, drift: bool = False,
-                speedup: float | None = None, planar: bool = True) -> int:
+                speedup: float | None = None, planar: bool = False) -> int:
     """Preview a chain on a source: a live window, or one composite written to a PNG.
 
     Parameters
@@ -826,6 +826,10 @@ def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), ex
         ``--control NAME=SOURCE`` options.
     exact : bool
         Solver per pixel instead of tables (slow).
+    planar : bool
+        Run the window on the clip's Y′CbCr planes (one-pass kernel, reduced monitors).  Off
+        by default: measured slower in the window than the R′G′B′ path on 2 cores
+        (benchmarks/README.md, "Real time at HD").
     monitors : sequence of str or str, optional
         Monitors shown at the start, from ``waveform vectorscope transfer alarms``.
     max_frames : int, optional
