@@ -501,7 +501,7 @@ def _verb_batch(sub):
     c.add_argument("--workers", type=_int_in(1, 256, "--workers"), default=None, metavar="N",
                    help="local cluster: worker processes, e.g. --workers 2 (default one per "
                         "core)")
-    c.add_argument("--segment-s", type=float, default=None, metavar="SECONDS",
+    c.add_argument("--segment-s", type=_positive, default=None, metavar="SECONDS",
                    help="clips longer than this are split into segments rendered in "
                         "parallel, seconds, e.g. --segment-s 10 (default 30)")
     c.add_argument("--quiet", action="store_true", help="no progress lines")
