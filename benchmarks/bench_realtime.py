@@ -211,7 +211,7 @@ def bench_knob_latency(clip: Path, chains, trials: int = 5) -> dict:
     from livecurve.media.planes import PlaneClipSource
     from livecurve.media.probe import probe
     from livecurve.preview.keys import Rebuilder
-    from livecurve.preview.window import PreviewSession
+    from livecurve.preview.window import KNOB_WAIT_S, PreviewSession
     info = probe(str(clip))
     period = 1.0 / info.fps
     threads = numba.get_num_threads()
@@ -236,6 +236,9 @@ def bench_knob_latency(clip: Path, chains, trials: int = 5) -> dict:
                 got = None
                 while got is None:
                     fr = next(src)
+                    if rb.busy:                # as the window does before a new frame
+                        numba.set_num_threads(1)
+                        rb.wait_knobs(KNOB_WAIT_S)
                     numba.set_num_threads(1 if rb.busy else threads)
                     try:
                         kind, obj, err = rb.results.get_nowait()

@@ -67,8 +67,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, signal
-from scipy.linalg import expm
 
 from livecurve.engine import linefilters as _lf
 from livecurve.engine.linefilters import LineFilter, apply_line_filter
@@ -446,6 +444,7 @@ def _zoh_maps(a, b, t):
     The slewing map is the same construction with the first state's row replaced
     by a constant rate c (ẋ0 = c), carried as an extra input.
     """
+    from scipy.linalg import expm  # here, not at import: scipy costs a render ~0.5 s to start
     n = a.shape[0]
     aug = np.zeros((n + 1, n + 1))
     aug[:n, :n], aug[:n, n] = a, b
@@ -468,6 +467,7 @@ def _block(sections: list[Section], t: float, method: str) -> np.ndarray:
                               e_slew_v=0.0, step_v=sr * t)
     a, b, c = _combined(sections)
     if method == "bilinear":
+        from scipy import signal
         phi, gam, cd, dd, _ = signal.cont2discrete((a, b[:, None], c[None, :], [[0.0]]), t,
                                                    method="bilinear")
         return pack_block(lin=np.hstack([phi, gam]), c=cd[0], d=float(dd[0, 0]),
@@ -602,6 +602,7 @@ def _first_3db(mag, f_max: float) -> float:
     j = int(below[0])
     if j == 0:
         return float(grid[0])
+    from scipy import optimize
     return float(optimize.brentq(lambda f: float(mag(f)) - math.sqrt(0.5), grid[j - 1],
                                  grid[j], xtol=1e-12 * grid[j], rtol=1e-12))
 

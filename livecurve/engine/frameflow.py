@@ -199,10 +199,12 @@ class FrameFlow:
         return not self.engine.exact and all(cs.rate != "pixel" for cs, _ in self.controls)
 
     def process_planes(self, y: np.ndarray, cb: np.ndarray, cr: np.ndarray, frame_index: int,
-                       *, in_legal: bool = True, out=None):
+                       *, in_legal: bool = True, out=None, line_step: int = 1):
         """Run one frame of 8-bit Y′CbCr planes through the chain in one pass per line
         (:class:`livecurve.engine.fused.FusedChain`); returns legal-range (y, cb, cr) planes,
-        *out* when given.  The clip's matrix must be :attr:`standard`."""
+        *out* when given.  The clip's matrix must be :attr:`standard`.  *line_step* > 1
+        runs only every *line_step*-th line (for a view that reads no others; see
+        :meth:`FusedChain.process`)."""
         from livecurve.engine.fused import FusedChain
         fc = getattr(self, "_fused", None)
         if fc is None or fc.in_legal != bool(in_legal):
@@ -222,7 +224,7 @@ class FrameFlow:
         ctl = self.control_values(frame_index)
         self.last_controls = ctl
         fc.engine = self.engine
-        return fc.process(y, cb, cr, controls=ctl, out=out)
+        return fc.process(y, cb, cr, controls=ctl, out=out, line_step=line_step)
 
     def view_planes(self, planes_in, planes_out, *, step: int = 2, in_legal: bool = True,
                     source_rgb: bool = True):
@@ -231,20 +233,33 @@ class FrameFlow:
         codes through the output converter's matrix), for the window's picture and
         monitors at a fixed cost.  Returns the source's R′G′B′ at the same size (or
         :attr:`rgb_out` when *source_rgb* is False)."""
+        return self.show_views(self.make_views(planes_in, planes_out, step=step,
+                                               in_legal=in_legal, source_rgb=source_rgb))
+
+    def make_views(self, planes_in, planes_out, *, step: int = 2, in_legal: bool = True,
+                   source_rgb: bool = True) -> tuple:
+        """The views :meth:`view_planes` makes, as ``(planes_in, planes_out, rgb_out,
+        source R′G′B′ or None)``, without touching the flow (any thread may make them)."""
         from livecurve.engine.fused import sampled_volts
         sp, std = self.spec.space, self.standard
-        self.planes_in = sampled_volts(*planes_in, space=sp, standard=std, step=step,
-                                       in_legal=in_legal)
-        self.planes_out = sampled_volts(*planes_out, space=sp, standard=std, step=step)
+        v_in = sampled_volts(*planes_in, space=sp, standard=std, step=step, in_legal=in_legal)
+        v_out = sampled_volts(*planes_out, space=sp, standard=std, step=step)
         # the output planes hold the converter's codes already: a 16-bit converter only
         # carries them on to the 8-bit R′G′B′ word (no second visible rounding)
-        self.rgb_out = volts_to_codes(self.planes_out, space=sp, standard=std,
-                                      converter_bits=16, converter_legal=True,
-                                      out_dtype=np.uint8)
-        if not source_rgb:
-            return self.rgb_out
-        return volts_to_codes(self.planes_in, space=sp, standard=std, converter_bits=16,
-                              converter_legal=True, out_dtype=np.uint8)
+        rgb_out = volts_to_codes(v_out, space=sp, standard=std, converter_bits=16,
+                                 converter_legal=True, out_dtype=np.uint8)
+        src = None
+        if source_rgb:
+            src = volts_to_codes(v_in, space=sp, standard=std, converter_bits=16,
+                                 converter_legal=True, out_dtype=np.uint8)
+        return v_in, v_out, rgb_out, src
+
+    def show_views(self, views: tuple):
+        """Point :attr:`planes_in`, :attr:`planes_out`, :attr:`rgb_out` at *views* (from
+        :meth:`make_views`); returns the picture to show beside them (the source's R′G′B′
+        when made, else :attr:`rgb_out`)."""
+        self.planes_in, self.planes_out, self.rgb_out, src = views
+        return self.rgb_out if src is None else src
 
     def process(self, rgb: np.ndarray, frame_index: int) -> np.ndarray:
         """Run one decoded frame through the chain; returns the output R′G′B′ codes

@@ -5,7 +5,7 @@ The reference path turns a decoded picture into R′G′B′ codes, then into pl
 filters over whole planes (:class:`livecurve.engine.pipeline.FrameEngine`), and turns
 the volts back into codes (:func:`~livecurve.signal.levels.volts_to_codes`).  Every step
 streams full frames through memory.  This module does the same arithmetic in one numba
-kernel that walks four scan lines at a time while they sit in cache, parallel over
+kernel that walks a band of sixteen scan lines at a time while they sit in cache, parallel over
 bands of lines, and stays in the clip's own Y′CbCr domain:
 
 codes → volts
@@ -41,7 +41,20 @@ from __future__ import annotations
 import numba as nb
 import numpy as np
 
-from livecurve.engine.linefilters import N_COEF, _filter_group
+from livecurve.engine.linefilters import (
+    K_C,
+    K_E,
+    K_END,
+    K_LIN,
+    K_N,
+    K_SLEW,
+    K_SLW,
+    K_STEP,
+    N_COEF,
+    NMAX,
+    _filter_group,
+    _one_state_slew,
+)
 from livecurve.errors import MediaError, SolverError
 from livecurve.signal.codes import code_range
 from livecurve.signal.component import (
@@ -52,8 +65,18 @@ from livecurve.signal.component import (
 )
 from livecurve.signal.levels import TIE_EPS, _converter_ranges
 
-#: Lines handled together (the line filters' own group of rows).
-BAND = 4
+#: Lines handled together.  The line filters run across the band's lines as vector lanes
+#: (a line's recursion is serial along the line, but the band's lines are independent), so
+#: the band is a multiple of the SIMD width; 16 float64 lanes measured 3–4× faster than
+#: four interleaved lines on this project's machine (benchmarks/README.md).
+BAND = 16
+#: Samples of a line taken at a time through the lanes (they stay in the first-level cache).
+_XB = 64
+#: Fast-math flags for the conversions: contraction and reassociation, but NaN and inf kept
+#: (the converter counts NaN pixels).
+_FM = {"contract", "reassoc", "nsz", "arcp"}
+#: Lines of the line filters' own row group (:mod:`livecurve.engine.linefilters`).
+_LF_ROWS = 4
 
 # run descriptor columns (float64 array, one row per run)
 _R_TAB, _R_N, _R_M, _R_LO, _R_INV, _R_CPOS, _R_LF, _R_NLF, _R_BLANK = range(9)
@@ -146,6 +169,10 @@ class FusedChain:
                 if t.is_2d:
                     n_2d += 1
         self._tab = np.concatenate(tabs) if tabs else np.zeros(1, np.float32)
+        self._pair = _pairs(self._tab, rows)
+        self._n_max = int(max((r[_R_N] for r in rows), default=2))
+        # NaN/inf can reach a line filter only from a table holding them
+        self._check = not bool(np.isfinite(self._tab).all())
         self._coef = np.concatenate(coefs) if coefs else np.zeros((1, N_COEF))
         self._runs = np.array(rows, np.float64).reshape(-1, _R_COLS)
         if self._runs.shape[0] == 0:
@@ -201,7 +228,7 @@ class FusedChain:
 
     # ---- per frame -----------------------------------------------------------------------
     def process(self, y: np.ndarray, cb: np.ndarray, cr: np.ndarray, *,
-                controls: dict | None = None, out=None):
+                controls: dict | None = None, out=None, line_step: int = 1):
         """Run one frame of 8-bit Y′CbCr planes through the chain and the converter.
 
         Parameters
@@ -214,11 +241,20 @@ class FusedChain:
             :meth:`FrameEngine.process` takes them; per-pixel controls are not fused).
         out : tuple of three ndarrays, optional
             Output planes of the input planes' shapes (may not be the inputs).
+        line_step : int
+            Run only every *line_step*-th line (0, step, 2·step, …), for a view that reads
+            no others.  Each line goes through the chain on its own (line filters run
+            along a line), so those lines come out as in a full pass; the other lines of
+            *out* are left as they were.  A chroma line of the output is made from the one
+            run line it holds (the full pass averages its two lines for 4:2:0).
 
         Returns
         -------
         tuple (y, cb, cr) of uint8 planes, legal range.
         """
+        if isinstance(line_step, bool) or int(line_step) != line_step or line_step < 1:
+            raise ValueError(f"line_step must be a whole number >= 1, not {line_step!r}")
+        lstep = int(line_step)
         h, w = y.shape
         sh, sv = _subsampling(y.shape, cb.shape)
         if cr.shape != cb.shape:
@@ -231,7 +267,7 @@ class FusedChain:
         act = self._active
         rgb = self.space == "rgb"
         if not act[0]:
-            np.take(self._luts[0], y, out=oy)
+            np.take(self._luts[0], y[::lstep], out=oy[::lstep])
         if not rgb and not act[1]:
             np.take(self._luts[1], cb, out=ocb)
         if not rgb and not act[2]:
@@ -240,8 +276,9 @@ class FusedChain:
             stats = np.zeros(2, np.int64)
             n_chunks = max(1, 4 * nb.get_num_threads())
             _fused(y, cb, cr, sh, sv, self._in, self._m_in, self._m_out, self._off, rgb,
-                   act.astype(np.uint8), self._chan_runs, self._runs, self._tab, cpos,
-                   self._coef, self._conv, self._out, oy, ocb, ocr, stats, n_chunks)
+                   act.astype(np.uint8), self._chan_runs, self._runs, self._tab, self._pair,
+                   self._n_max, self._check, cpos, self._coef, self._conv, self._out, oy, ocb,
+                   ocr, stats, n_chunks, lstep)
             if stats[1]:
                 raise MediaError("a line filter met NaN or infinite volts; line filters need "
                                  "finite volts")
@@ -249,6 +286,22 @@ class FusedChain:
                 raise SolverError(f"the chain produced NaN in {int(stats[0])} pixels: values "
                                   "no converter can encode")
         return out
+
+
+def _pairs(tab: np.ndarray, rows) -> np.ndarray:
+    """Each 1-D table entry with the step to the next, (t[i], t[i+1] − t[i]) as one
+    complex64, so the lookup reads one 8-byte word per sample.  The step is the same
+    float32 difference the interpolation takes, so results are unchanged.  Entries of
+    2-D tables are left zero (their lines blend a column of their own)."""
+    pair = np.zeros(tab.size, np.complex64)
+    for r in rows:
+        off, n, m = int(r[_R_TAB]), int(r[_R_N]), int(r[_R_M])
+        if m != 1:
+            continue
+        t = tab[off:off + n]
+        pair.real[off:off + n] = t
+        pair.imag[off:off + n - 1] = t[1:] - t[:-1]
+    return pair
 
 
 def _subsampling(luma: tuple, chroma: tuple) -> tuple[int, int]:
@@ -262,7 +315,7 @@ def _subsampling(luma: tuple, chroma: tuple) -> tuple[int, int]:
                      "or 4:2:0")
 
 
-@nb.njit(cache=True)
+@nb.njit(cache=True, fastmath=_FM)
 def _chroma_line(c, i, sh, sv, tmp, out):
     """Chroma plane *c* at luma line *i*, full width, into *out* (float64, W): linear
     between the sited samples (¾·¼ down for 4:2:0, ½·½ across for 4:2:0 and 4:2:2)."""
@@ -280,85 +333,52 @@ def _chroma_line(c, i, sh, sv, tmp, out):
         for j in range(cw):
             tmp[j] = np.float64(ca[j])
     if sh:
-        for x in range(0, w, 2):
-            out[x] = tmp[x >> 1]
-        for x in range(1, w, 2):
-            j = x >> 1
-            out[x] = 0.5 * (tmp[j] + tmp[min(j + 1, cw - 1)])
+        for j in range(cw - 1):      # sited sample, then half-way to the next (vectorises)
+            a = tmp[j]
+            out[2 * j] = a
+            out[2 * j + 1] = 0.5 * (a + tmp[j + 1])
+        j = cw - 1                   # the edge repeats the last sample
+        out[2 * j] = tmp[j]
+        if 2 * j + 1 < w:
+            out[2 * j + 1] = 0.5 * (tmp[j] + tmp[j])
     else:
         for x in range(w):
             out[x] = tmp[x]
 
 
-@nb.njit(cache=True, fastmath=True)
-def _table_rows(v, nrows, tab, off, n, m, lo, inv, cpos_row):
-    """Rows 0…nrows−1 of *v* (4, W) through one table in place (1-D, or 2-D at the rows'
-    control columns) — the lookup of :mod:`livecurve.engine.tables`."""
-    w = v.shape[1]
-    top = n - 1
-    last = np.float32(top)
-    for r in range(nrows):
-        if m == 1:
-            for x in range(w):
-                p = (v[r, x] - lo) * inv
-                p = min(max(p, np.float32(0.0)), last)
-                i = min(int(p), top - 1)
-                f = p - np.float32(i)
-                t0 = tab[off + i]
-                v[r, x] = t0 + f * (tab[off + i + 1] - t0)
-        else:
-            j = min(int(cpos_row[r]), m - 2)
-            g = cpos_row[r] - np.float32(j)
-            b0 = off + j * n
-            b1 = b0 + n
-            for x in range(w):
-                p = (v[r, x] - lo) * inv
-                p = min(max(p, np.float32(0.0)), last)
-                i = min(int(p), top - 1)
-                f = p - np.float32(i)
-                a = tab[b0 + i] + g * (tab[b1 + i] - tab[b0 + i])
-                b = tab[b0 + i + 1] + g * (tab[b1 + i + 1] - tab[b0 + i + 1])
-                v[r, x] = a + f * (b - a)
-
-
 @nb.njit(cache=True, parallel=True, nogil=True)
-def _fused(y, cb, cr, sh, sv, cin, m_in, m_out, off, rgb, act, chan_runs, runs, tab, cpos,
-           coef, conv, cout, oy, ocb, ocr, stats, n_chunks):
-    h, w = y.shape
+def _fused(y, cb, cr, sh, sv, cin, m_in, m_out, off, rgb, act, chan_runs, runs, tab, pair,
+           n_max, check, cpos, coef, conv, cout, oy, ocb, ocr, stats, n_chunks, lstep):
+    h = (y.shape[0] + lstep - 1) // lstep      # lines run (every lstep-th)
+    w = y.shape[1]
     n_groups = (h + BAND - 1) // BAND
     n_chunks = max(1, min(n_groups, n_chunks))
     nan_total = 0
     bad_total = 0
     for chunk in nb.prange(n_chunks):
         v = np.zeros((3, BAND, w), np.float32)
-        cp = np.zeros(BAND, np.float32)
         nv = np.zeros((2, BAND, w), np.float32)   # normalised Pb, Pr out, full resolution
-        bad = np.zeros(BAND, np.uint8)
-        lfbuf = np.zeros((BAND, w), np.float64)
-        pad_in = np.zeros(w, np.float32)
-        pad_out = np.zeros(w, np.float32)
-        st = np.zeros((BAND, 3))
-        xs = np.zeros(3)
-        xn = np.zeros(3)
+        sc = _Scratch(w, n_max)
         nan_c = 0
         bad_c = 0
         for grp in range(chunk * n_groups // n_chunks, (chunk + 1) * n_groups // n_chunks):
             i0 = grp * BAND
             nr = min(BAND, h - i0)
-            _to_volts(y, cb, cr, sh, sv, cin, m_in, off, rgb, act, i0, nr, v)
-            bad_c += _runs_band(v, act, chan_runs, runs, tab, cpos, coef, i0, nr, cp, bad,
-                                lfbuf, pad_in, pad_out, st, xs, xn)
+            _to_volts(y, cb, cr, sh, sv, cin, m_in, off, rgb, act, i0, nr, v, lstep)
+            bad_c += _runs_band(v, act, chan_runs, runs, tab, pair, cpos, coef, i0, nr, sc,
+                                check, lstep)
             nan_c += _convert(y, v, nv, i0, nr, sh, sv, rgb, act, conv, m_out, cout,
-                              oy, ocb, ocr)
+                              oy, ocb, ocr, lstep)
         nan_total += nan_c
         bad_total += bad_c
     stats[0] = nan_total
     stats[1] = bad_total
 
 
-@nb.njit(cache=True)
-def _to_volts(y, cb, cr, sh, sv, cin, m_in, off, rgb, act, i0, nr, v):
-    """Lines i0 … i0+nr−1 of codes into centred volts, v (3, BAND, W)."""
+@nb.njit(cache=True, fastmath=_FM)
+def _to_volts(y, cb, cr, sh, sv, cin, m_in, off, rgb, act, i0, nr, v, lstep):
+    """Run lines i0 … i0+nr−1 (picture lines i·lstep) of codes into centred volts,
+    v (3, BAND, W)."""
     w = y.shape[1]
     y_lo, y_span, c_mid, c_span = cin[0], cin[1], cin[2], cin[3]
     ys = Y_SPAN_V
@@ -374,7 +394,7 @@ def _to_volts(y, cb, cr, sh, sv, cin, m_in, off, rgb, act, i0, nr, v):
     ub = np.empty(w)
     ur = np.empty(w)
     for r in range(nr):
-        i = i0 + r
+        i = (i0 + r) * lstep
         yr = y[i]
         v0 = v[0, r]
         v1 = v[1, r]
@@ -404,9 +424,30 @@ def _to_volts(y, cb, cr, sh, sv, cin, m_in, off, rgb, act, i0, nr, v):
 
 
 @nb.njit(cache=True)
-def _runs_band(v, act, chan_runs, runs, tab, cpos, coef, i0, nr, cp, bad, lfbuf, pad_in,
-               pad_out, st, xs, xn):
-    """Every run of every active channel over one band; returns lines with NaN/inf."""
+def _Scratch(w, n_max):
+    """A band's working arrays (one set per thread), as a tuple."""
+    return (np.zeros((BAND, w), np.int32),        # table index of each sample
+            np.zeros((BAND, w), np.float32),      # its fraction
+            np.zeros((_XB, BAND), np.float32),    # samples lane-major: a line a lane
+            np.zeros((BAND, max(n_max, 2)), np.complex64),   # a 2-D table's line blends
+            np.zeros((BAND, w), np.float64),      # line filters' own scratch ...
+            np.zeros(w, np.float32),
+            np.zeros(w, np.float32),
+            np.zeros((_LF_ROWS, NMAX)),
+            np.zeros(NMAX),
+            np.zeros(NMAX),
+            np.zeros(BAND, np.uint8),             # lines met with NaN or ±inf
+            np.zeros((4, BAND)))                  # lane states and the rate limit's check
+
+
+@nb.njit(cache=True)
+def _runs_band(v, act, chan_runs, runs, tab, pair, cpos, coef, i0, nr, sc, check, lstep):
+    """Every run of every active channel over one band; returns lines with NaN/inf.
+
+    *check*: look for NaN/inf at the line filters' inputs.  They can only come from a
+    table holding them (codes and finite tables give finite volts), so the caller asks
+    for the check only then."""
+    idx, frac, lanes, blend, lfbuf, pad_in, pad_out, st, xs, xn, bad, lane_st = sc
     w = v.shape[2]
     bad_lines = 0
     for ch in range(3):
@@ -423,26 +464,221 @@ def _runs_band(v, act, chan_runs, runs, tab, cpos, coef, i0, nr, cp, bad, lfbuf,
             rd = runs[ri]
             n = int(rd[_R_N])
             m = int(rd[_R_M])
-            kc = int(rd[_R_CPOS])
-            if kc >= 0:
-                for r in range(BAND):
-                    cp[r] = cpos[kc, min(i0 + r, cpos.shape[1] - 1)]
-            _table_rows(vc, BAND, tab, int(rd[_R_TAB]), n, m, np.float32(rd[_R_LO]),
-                        np.float32(rd[_R_INV]), cp)
+            t_off = int(rd[_R_TAB])
+            _table_index(vc, n, np.float32(rd[_R_LO]), np.float32(rd[_R_INV]), idx, frac)
+            if m != 1:
+                kc = int(rd[_R_CPOS])
+                _blend_columns(tab, t_off, n, m, cpos, kc, i0, lstep, blend)
             nlf = int(rd[_R_NLF])
+            lf0 = int(rd[_R_LF])
+            form = _lane_form(coef[lf0]) if nlf == 1 else 0
+            for r in range(BAND):
+                bad[r] = 0
+            if form > 0:
+                # a block of columns at a time, in cache: table → lanes (one line a lane),
+                # the filter across the lanes (its states carried on), back to the lines
+                for x0 in range(0, w, _XB):
+                    x1 = min(x0 + _XB, w)
+                    _table_lookup(pair, t_off, m, blend, idx, frac, x0, x1, lanes, True, vc)
+                    if check:
+                        _lane_check(lanes, x1 - x0, bad)
+                    _lane_filter(coef[lf0], form, rd[_R_BLANK], lanes, x1 - x0, lane_st,
+                                 x0 == 0)
+                    _from_lanes(lanes, x0, x1, vc)
+            else:
+                _table_lookup(pair, t_off, m, blend, idx, frac, 0, w, lanes, False, vc)
+                if nlf > 0:
+                    for g in range(0, BAND, _LF_ROWS):
+                        _filter_group(vc, vc.view(np.uint32), coef[lf0:lf0 + nlf],
+                                      rd[_R_BLANK], vc, bad, g, lfbuf, pad_in, pad_out, st,
+                                      xs, xn)
             if nlf > 0:
-                lf0 = int(rd[_R_LF])
-                for r in range(BAND):
-                    bad[r] = 0
-                _filter_group(vc, vc.view(np.uint32), coef[lf0:lf0 + nlf], rd[_R_BLANK], vc,
-                              bad, 0, lfbuf, pad_in, pad_out, st, xs, xn)
                 for r in range(nr):
                     bad_lines += bad[r]
     return bad_lines
 
 
+@nb.njit(cache=True, fastmath=True)
+def _table_index(vc, n, lo, inv, idx, frac):
+    """Table position of every sample of the band: the index of the entry below and the
+    fraction to the next (the lookup of :mod:`livecurve.engine.tables`; vectorises)."""
+    top = n - 1
+    last = np.float32(top)
+    topm1 = np.int32(top - 1)
+    for r in range(BAND):
+        row = vc[r]
+        ir = idx[r]
+        fr = frac[r]
+        for x in range(row.shape[0]):
+            p = (row[x] - lo) * inv
+            p = min(max(p, np.float32(0.0)), last)
+            i = min(np.int32(p), topm1)
+            ir[x] = i
+            fr[x] = p - np.float32(i)
+
+
+@nb.njit(cache=True, fastmath=True)
+def _blend_columns(tab, t_off, n, m, cpos, kc, i0, lstep, blend):
+    """A 2-D table's column for each line of the band, at the line's control position,
+    as (value, step to the next) pairs: the same blend the 2-D lookup makes per sample."""
+    for r in range(BAND):
+        c = cpos[kc, min((i0 + r) * lstep, cpos.shape[1] - 1)]
+        j = min(int(c), m - 2)
+        g = c - np.float32(j)
+        b0 = t_off + j * n
+        b1 = b0 + n
+        br = blend[r]
+        for i in range(n):
+            br[i] = tab[b0 + i] + g * (tab[b1 + i] - tab[b0 + i])
+        for i in range(n - 1):
+            br[i] = br[i].real + 1j * (br[i + 1].real - br[i].real)
+
+
+@nb.njit(cache=True, fastmath=True)
+def _table_lookup(pair, t_off, m, blend, idx, frac, x0, x1, lanes, to_lanes, vc):
+    """Interpolate samples x0 … x1−1 of each line from their pairs: into *lanes*
+    (sample-major from x0, a line a lane) when *to_lanes*, else back into the lines *vc*."""
+    for r in range(BAND):
+        ir = idx[r]
+        fr = frac[r]
+        if m == 1:
+            pr = pair[t_off:]
+        else:
+            pr = blend[r]
+        if to_lanes:
+            for x in range(x0, x1):
+                z = pr[ir[x]]
+                lanes[x - x0, r] = z.real + fr[x] * z.imag
+        else:
+            row = vc[r]
+            for x in range(x0, x1):
+                z = pr[ir[x]]
+                row[x] = z.real + fr[x] * z.imag
+
+
 @nb.njit(cache=True)
-def _convert(y, v, nv, i0, nr, sh, sv, rgb, act, conv, m_out, cout, oy, ocb, ocr):
+def _lane_check(lanes, nx, bad):
+    """Flag lines (lanes) holding NaN or ±inf in the first *nx* samples."""
+    for x in range(nx):
+        for r in range(BAND):
+            if not np.isfinite(lanes[x, r]):
+                bad[r] = 1
+
+
+@nb.njit(cache=True)
+def _lane_form(cf):
+    """Which lane kernel runs the one-block line filter *cf* (0: none; the block goes
+    through :func:`livecurve.engine.linefilters._filter_group` instead).  The same cases,
+    with the same arithmetic, as the block kernel's fast paths."""
+    n = int(cf[K_N])
+    sr = cf[K_SLEW]
+    last_only = cf[K_END] > 0.0
+    for k in range(n - 1):
+        if cf[K_C + k] != 0.0:
+            last_only = False
+    if n == 1 and sr > 0.0:
+        return 1
+    if n == 1 and last_only:
+        return 2
+    if last_only and n == 2 and sr <= 0.0:
+        return 3
+    tri = (cf[K_LIN + 1] == 0.0 and cf[K_LIN + 2] == 0.0 and cf[K_SLW + 1] == 0.0
+           and cf[K_SLW + 2] == 0.0)
+    if last_only and n == 3 and tri and sr <= 0.0:
+        return 4
+    return 0
+
+
+@nb.njit(cache=True, fastmath={"contract"})
+def _lane_filter(cf, form, blank, lanes, w, lane_st, start):
+    """The block *cf* along the band's lines, one line a vector lane, in place on the
+    first *w* samples of *lanes* (sample-major, a line a lane); the states in *lane_st*
+    carry on from the previous block of samples unless *start*.  Each line starts at
+    rest at the blanking level: u = x − blank, y = blank + C·x[n+1]
+    (:mod:`livecurve.engine.linefilters`, eqs. 1 and 4)."""
+    n = int(cf[K_N])
+    w5 = NMAX + 2
+    a11 = cf[K_LIN]
+    a12 = cf[K_LIN + 1]
+    g1 = cf[K_LIN + NMAX]
+    a21 = cf[K_LIN + w5]
+    a22 = cf[K_LIN + w5 + 1]
+    a23 = cf[K_LIN + w5 + 2]
+    g2 = cf[K_LIN + w5 + NMAX]
+    a31 = cf[K_LIN + 2 * w5]
+    a32 = cf[K_LIN + 2 * w5 + 1]
+    a33 = cf[K_LIN + 2 * w5 + 2]
+    g3 = cf[K_LIN + 2 * w5 + NMAX]
+    cl = cf[K_C + n - 1]
+    p = lane_st[0]
+    q = lane_st[1]
+    s = lane_st[2]
+    d = lane_st[3]
+    if start:
+        for r in range(BAND):
+            p[r] = 0.0
+            q[r] = 0.0
+            s[r] = 0.0
+    if form == 1:
+        e_slew = cf[K_E]
+        step = cf[K_STEP]
+        for j in range(w):
+            ln = lanes[j]
+            over = 0
+            for r in range(BAND):
+                u = ln[r] - blank
+                dd = u - p[r]
+                d[r] = dd
+                q[r] = p[r]                      # the state before the sample
+                p[r] = u - a11 * dd
+                over += abs(dd) > e_slew
+            if over:                             # a line at its rate limit: exact step
+                for r in range(BAND):
+                    if abs(d[r]) > e_slew:
+                        p[r] = _one_state_slew(q[r], ln[r] - blank, a11, e_slew, step)
+            for r in range(BAND):
+                ln[r] = blank + cl * p[r]
+    elif form == 2:
+        for j in range(w):
+            ln = lanes[j]
+            for r in range(BAND):
+                p[r] = g1 * (ln[r] - blank) + a11 * p[r]
+                ln[r] = blank + cl * p[r]
+    elif form == 3:
+        for j in range(w):
+            ln = lanes[j]
+            for r in range(BAND):
+                u = ln[r] - blank
+                p0 = p[r]
+                q0 = q[r]
+                p[r] = g1 * u + a11 * p0 + a12 * q0
+                q[r] = g2 * u + a21 * p0 + a22 * q0
+                ln[r] = blank + cl * q[r]
+    else:
+        for j in range(w):
+            ln = lanes[j]
+            for r in range(BAND):
+                u = ln[r] - blank
+                p0 = p[r]
+                q0 = q[r]
+                s0 = s[r]
+                p[r] = g1 * u + a11 * p0
+                q[r] = g2 * u + a21 * p0 + a22 * q0 + a23 * s0
+                s[r] = g3 * u + a31 * p0 + a32 * q0 + a33 * s0
+                ln[r] = blank + cl * s[r]
+
+
+@nb.njit(cache=True)
+def _from_lanes(lanes, x0, x1, vc):
+    """Lanes (samples x0 … x1−1, a line a lane) back into the band's lines."""
+    for r in range(BAND):
+        row = vc[r]
+        for x in range(x0, x1):
+            row[x] = lanes[x - x0, r]
+
+
+@nb.njit(cache=True, fastmath=_FM)
+def _convert(y, v, nv, i0, nr, sh, sv, rgb, act, conv, m_out, cout, oy, ocb, ocr, lstep):
     """Output converter for lines i0 … i0+nr−1, then 8-bit Y′CbCr (chroma resampled down)."""
     w = y.shape[1]
     half = 0.5 + TIE_EPS
@@ -459,7 +695,7 @@ def _convert(y, v, nv, i0, nr, sh, sv, rgb, act, conv, m_out, cout, oy, ocb, ocr
     m20, m21, m22 = m_out[2, 0], m_out[2, 1], m_out[2, 2]
     nnan = 0
     for r in range(nr):
-        i = i0 + r
+        i = (i0 + r) * lstep
         p0 = v[0, r]
         p1 = v[1, r]
         p2 = v[2, r]
@@ -510,30 +746,55 @@ def _convert(y, v, nv, i0, nr, sh, sv, rgb, act, conv, m_out, cout, oy, ocb, ocr
             continue
         o = ocb if cc == 0 else ocr
         src = nv[cc]
-        if sv:
+        if lstep > 1:            # each run line makes the chroma line it sits on
+            k0 = 0
+            k1 = nr
+        elif sv:
             k0 = i0 >> 1
             k1 = (i0 + nr + 1) >> 1
         else:
             k0 = i0
             k1 = i0 + nr
-        for k in range(k0, min(k1, ch_)):
-            ra = (2 * k if sv else k) - i0
-            rb = min(ra + 1, nr - 1) if sv else ra
+        for kk in range(k0, k1):
+            if lstep > 1:
+                k = ((i0 + kk) * lstep) >> sv
+                ra = kk
+                rb = kk
+            else:
+                k = kk
+                ra = (2 * k if sv else k) - i0
+                rb = min(ra + 1, nr - 1) if sv else ra
+            if k >= ch_:
+                break
             sa = src[ra]
             sb = src[rb]
             orow = o[k]
-            for j in range(cw):
-                if sh:
+            if sh:
+                # [¼ ½ ¼] across: the edges (first, and last when W is odd) repeat the
+                # last sample; the middle needs no clamping, so it vectorises
+                j_hi = cw if 2 * (cw - 1) + 1 <= w - 1 else cw - 1
+                for j in (0, cw - 1):
+                    if j == cw - 1 and j < j_hi:
+                        continue
                     xa = max(2 * j - 1, 0)
                     xb = 2 * j
                     xc = min(2 * j + 1, w - 1)
                     s = 0.125 * (np.float64(sa[xa]) + np.float64(sb[xa])
                                  + np.float64(sa[xc]) + np.float64(sb[xc])) \
                         + 0.25 * (np.float64(sa[xb]) + np.float64(sb[xb]))
-                else:
+                    val = oc_mid + s * oc_span
+                    orow[j] = np.uint8(np.floor(min(max(val, vlo), vhi) + half))
+                for j in range(1, j_hi):
+                    s = 0.125 * (np.float64(sa[2 * j - 1]) + np.float64(sb[2 * j - 1])
+                                 + np.float64(sa[2 * j + 1]) + np.float64(sb[2 * j + 1])) \
+                        + 0.25 * (np.float64(sa[2 * j]) + np.float64(sb[2 * j]))
+                    val = oc_mid + s * oc_span
+                    orow[j] = np.uint8(np.floor(min(max(val, vlo), vhi) + half))
+            else:
+                for j in range(cw):
                     s = 0.5 * (np.float64(sa[j]) + np.float64(sb[j]))
-                val = oc_mid + s * oc_span
-                orow[j] = np.uint8(np.floor(min(max(val, vlo), vhi) + half))
+                    val = oc_mid + s * oc_span
+                    orow[j] = np.uint8(np.floor(min(max(val, vlo), vhi) + half))
     return nnan
 
 
@@ -547,16 +808,36 @@ def sampled_volts(y: np.ndarray, cb: np.ndarray, cr: np.ndarray, *, space: str,
     """
     h, w = y.shape
     sh, sv = _subsampling(y.shape, cb.shape)
-    rows = np.arange(0, h, step)
-    cols = np.arange(0, w, step)
     cin = code_range(8, legal=bool(in_legal))
-    yn = (y[::step, ::step].astype(np.float32) - np.float32(cin.y_lo)) / np.float32(cin.y_span)
-    crow = (rows >> sv)[:, None]
-    ccol = (cols >> sh)[None, :]
-    pb = (cb[crow, ccol].astype(np.float32) - np.float32(cin.c_mid)) / np.float32(cin.c_span)
-    pr = (cr[crow, ccol].astype(np.float32) - np.float32(cin.c_mid)) / np.float32(cin.c_span)
-    n = np.stack([yn, pb, pr])
-    if space == "rgb":
-        n = np.tensordot(ypbpr_to_rgb_matrix(standard).astype(np.float32), n, axes=1)
-    off = np.array(centre_offsets_v(space), np.float32)[:, None, None]
-    return np.ascontiguousarray(n * np.float32(Y_SPAN_V) - off, dtype=np.float32)
+    k = np.array([cin.y_lo, cin.y_span, cin.c_mid, cin.c_span], np.float32)
+    m = ypbpr_to_rgb_matrix(standard).astype(np.float32)
+    off = np.array(centre_offsets_v(space), np.float32)
+    out = np.empty((3, (h + step - 1) // step, (w + step - 1) // step), np.float32)
+    _sampled(y, cb, cr, int(step), sh, sv, k, m, off, space == "rgb", np.float32(Y_SPAN_V),
+             out)
+    return out
+
+
+@nb.njit(cache=True, parallel=True, nogil=True)
+def _sampled(y, cb, cr, step, sh, sv, k, m, off, rgb, span, out):
+    ho, wo = out.shape[1], out.shape[2]
+    y_lo, y_span, c_mid, c_span = k[0], k[1], k[2], k[3]
+    for r in nb.prange(ho):
+        i = r * step
+        yr = y[i]
+        br = cb[i >> sv]
+        rr = cr[i >> sv]
+        for c in range(wo):
+            x = c * step
+            yn = (np.float32(yr[x]) - y_lo) / y_span
+            pb = (np.float32(br[x >> sh]) - c_mid) / c_span
+            pr = (np.float32(rr[x >> sh]) - c_mid) / c_span
+            if rgb:
+                a0 = m[0, 0] * yn + m[0, 1] * pb + m[0, 2] * pr
+                a1 = m[1, 0] * yn + m[1, 1] * pb + m[1, 2] * pr
+                a2 = m[2, 0] * yn + m[2, 1] * pb + m[2, 2] * pr
+            else:
+                a0, a1, a2 = yn, pb, pr
+            out[0, r, c] = a0 * span - off[0]
+            out[1, r, c] = a1 * span - off[1]
+            out[2, r, c] = a2 * span - off[2]

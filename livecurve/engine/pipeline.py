@@ -41,6 +41,8 @@ class Run:
     blank_out_v: float = 0.0
     lo_v: float = -0.5
     hi_v: float = 0.5
+    next_lo_v: float = -0.5   # the input domain the run hands the next one
+    next_hi_v: float = 0.5
     build_s: float = 0.0
 
 
@@ -107,16 +109,31 @@ class FrameEngine:
                               path=self.spec.path, key=f"live ({', '.join(knobs)})")
         return knobs[0] if knobs else None
 
+    def _turnable(self, stage: StageSpec) -> bool:
+        """The stage holds a knob the user turns that is not modulated."""
+        return any(ls.stage == stage.id and n not in self.modulated
+                   for n, ls in self.spec.live.items())
+
     def _plan(self, ch: int) -> list[Run]:
+        """Group the channel's stages into runs: one table (and the last stage's line
+        filter) each.  A run ends at a stage with dynamics, and a modulated knob's stage
+        never shares a run with another modulated knob's stage or with a stage whose knob
+        is turned by hand: turning that knob then rebuilds a 1-D table of its own, not the
+        modulated run's 2-D table (milliseconds instead of most of a second)."""
         runs: list[Run] = []
         cur: Run | None = None
+        cur_turnable = False
         for st in self.model.stages_for(ch):
             knob = self._knob_of(st)
-            if cur is None or (knob and cur.knob and knob != cur.knob):
+            turnable = self._turnable(st)
+            if cur is None or (knob and cur.knob and knob != cur.knob) \
+                    or (knob and cur_turnable) or (turnable and cur.knob):
                 cur = Run(ch, [])
                 runs.append(cur)
+                cur_turnable = False
             cur.stages.append(st)
             cur.knob = cur.knob or knob
+            cur_turnable = cur_turnable or turnable
             # the channel's own netlist (its overrides, the knobs' starting values)
             dyn = stage_dynamics(st, self.spec.opamp, self.model.netlist(ch, st, self.state.live))
             if dyn is not None:
@@ -124,8 +141,11 @@ class FrameEngine:
                 cur = None
         return runs
 
-    def rebuild(self, *, channels=(0, 1, 2)) -> None:
-        """(Re)build every run's table and filter at the present knobs and temperature."""
+    def rebuild(self, *, channels=(0, 1, 2), first_run: dict | None = None) -> None:
+        """(Re)build every run's table and filter at the present knobs and temperature.
+
+        *first_run* (channel → run index) starts a channel's rebuild at that run: the runs
+        before it are unchanged (a knob further down the chain), so is their output."""
         import time
 
         from livecurve.engine.dynamics import discretise
@@ -134,7 +154,11 @@ class FrameEngine:
         for ch in channels:
             lo, hi = lo0, hi0
             blank = -offs[ch] if offs[ch] else 0.0
-            for run in self.runs[ch]:
+            k0 = (first_run or {}).get(ch, 0)
+            if k0 > 0:      # carry on from the unchanged run before (as the loop below would)
+                prev = self.runs[ch][k0 - 1]
+                lo, hi, blank = prev.next_lo_v, prev.next_hi_v, prev.blank_out_v
+            for run in self.runs[ch][k0:]:
                 t0 = time.perf_counter()
                 run.lo_v, run.hi_v = lo, hi
                 run.blank_in_v = blank
@@ -159,6 +183,7 @@ class FrameEngine:
                     if hi - lo < 1e-6:
                         hi = lo + 1e-6
                 blank = run.blank_out_v
+                run.next_lo_v, run.next_hi_v = lo, hi
                 run.build_s = time.perf_counter() - t0
 
     def _blank_out(self, run: Run, blank_v: float) -> float:
@@ -196,9 +221,12 @@ class FrameEngine:
         self.state.live[name] = float(np.clip(value, ls.lo, ls.hi))
         if name in self.modulated:
             return
-        chans = [ch for ch in range(3) if any(ls.stage in [s.id for s in r.stages]
-                                             for r in self.runs[ch])]
-        self.rebuild(channels=chans)
+        first = {}
+        for ch in range(3):
+            hit = [k for k, r in enumerate(self.runs[ch]) if ls.stage in [s.id for s in r.stages]]
+            if hit:
+                first[ch] = hit[0]
+        self.rebuild(channels=list(first), first_run=first)
 
     def set_temperature(self, t_kelvin: float, temps_k: dict | None = None) -> None:
         """Move every junction to *t_kelvin* (or per stage *temps_k*) and rebuild."""

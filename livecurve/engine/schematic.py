@@ -14,8 +14,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import signal
-from scipy.linalg import expm
 
 from livecurve.engine import linefilters as _lf
 from livecurve.engine.dynamics import _first_3db, pack_block
@@ -144,6 +142,8 @@ def schematic_filter(dyn: SchematicDynamics, t: float) -> LineFilter:
     unity DC gain each (pole/zero pairs, scipy.signal.zpk2sos).  The cascade of discrete
     sections is the same discrete system (no approximation beyond rounding).
     """
+    from scipy import signal  # here, not at import (start-up time of every command)
+    from scipy.linalg import expm
     a, b, c, d = dyn.matrices
     n = a.shape[0]
     if n == 0:

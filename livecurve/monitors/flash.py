@@ -183,6 +183,17 @@ class FlashReport:
     mean_cd_m2: np.ndarray = field(repr=False)
 
 
+def cell_luminance(rgb: np.ndarray, weights) -> np.ndarray:
+    """Luminance of each cell, Kr·R + Kg·G + Kb·B (cd/m²), summed left to right.
+
+    Written out rather than as a matrix product: a BLAS product may sum in another order
+    or fuse the multiply-adds depending on the machine, which moves a level exactly on a
+    threshold (160 cd/m², 20 cd/m²) by one unit in the last place."""
+    rgb = np.asarray(rgb, dtype=np.float64)
+    kr, kg, kb = (float(k) for k in weights)
+    return rgb[..., 0] * kr + rgb[..., 1] * kg + rgb[..., 2] * kb
+
+
 class FlashMeter:
     """Streaming photosensitive flash meter (see the module docstring for the rules).
 
@@ -310,7 +321,7 @@ class FlashMeter:
             raise ConfigError("frame size changed during a flash measurement; call reset()",
                               key="planes", value=np.shape(planes))
         rgb = self.cell_rgb_cd_m2(planes)
-        lum = rgb @ self._weights
+        lum = cell_luminance(rgb, self._weights)
         rel = (rgb - self.black_cd_m2) / (self.white_cd_m2 - self.black_cd_m2)
         rsum = rel.sum(axis=1)
         ratio = np.where(rsum > 0, rel[:, 0] / np.where(rsum > 0, rsum, 1.0), 0.0)

@@ -30,6 +30,7 @@ import copy
 import math
 import queue
 import threading
+import time
 from dataclasses import dataclass
 
 from livecurve.errors import ConfigError, LivecurveError
@@ -302,6 +303,7 @@ class Rebuilder:
         self._need_knobs = False
         self._need_reload = False
         self._busy = False
+        self._reloading = False
         self._stop = False
         self.results: queue.SimpleQueue = queue.SimpleQueue()
         self._thread = threading.Thread(target=self._run, name="livecurve-rebuild", daemon=True)
@@ -336,7 +338,7 @@ class Rebuilder:
                 reload, wanted = self._need_reload, self._wanted
                 self._wanted = {}
                 self._need_reload = self._need_knobs = False
-                self._busy = True
+                self._busy, self._reloading = True, reload
             kind = "reload" if reload else "knobs"
             try:
                 if reload:
@@ -354,6 +356,21 @@ class Rebuilder:
                     self.want_knobs(wanted)  # keep the user's knobs on the chain in use
             with self._cond:
                 self._busy = False
+                self._cond.notify_all()
+
+    def wait_knobs(self, timeout_s: float) -> bool:
+        """Wait up to *timeout_s* for a knob build asked for (not a reload) to finish, so
+        the next frame can show the turned knob instead of a stale one.  True when no knob
+        build is running or waiting any more."""
+        end = time.perf_counter() + max(0.0, timeout_s)
+        with self._cond:
+            while (self._need_knobs or (self._busy and not self._reloading)) \
+                    and not self._need_reload and not self._stop:
+                left = end - time.perf_counter()
+                if left <= 0:
+                    return False
+                self._cond.wait(left)
+            return True
 
     def close(self) -> None:
         """Stop the worker (a build in progress is abandoned with the thread)."""

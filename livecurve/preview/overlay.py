@@ -306,21 +306,52 @@ class Composer:
             draw.zebra_overlay(pic, small, out=pic)
         return pic
 
-    def _monitor(self, name: str, flow, planes_out, planes_in, controls) -> np.ndarray:
+    def measure(self, flow, planes_out: np.ndarray, monitors) -> dict:
+        """The numbers of the monitors that read only the output picture (waveform,
+        vectorscope, level alarms), for *planes_out* (views as :meth:`FrameFlow.make_views`
+        makes them), in new arrays: the window makes them ahead, on the decoder thread, and
+        :meth:`compose` draws them (``numbers=``).  Monitors not on are not measured."""
+        spec = flow.spec
+        out: dict = {}
+        on = set(monitors)
+        if {"waveform", "vectorscope"} & on:
+            step = self.step_for(*planes_out.shape[1:])
+            sc = planes_out if step == 1 else np.ascontiguousarray(
+                planes_out[:, ::step, ::step])
+            if "waveform" in on:
+                cols = min(sc.shape[2], 240)
+                out["waveform"] = waveform(sc, space=spec.space, rows=256, columns=cols)
+            if "vectorscope" in on:
+                out["vectorscope"] = vectorscope(sc, space=spec.space, standard=flow.standard)
+        if "alarms" in on:
+            lim = converter_limits_v(spec.space, converter_bits=spec.converter_bits,
+                                     converter_legal=spec.converter_legal)
+            out["alarms"] = level_alarms(planes_out, space=spec.space, converter_limits_v=lim)
+        return out
+
+    def _monitor(self, name: str, flow, planes_out, planes_in, controls,
+                 numbers: dict | None = None) -> np.ndarray:
         spec = flow.spec
         tile = self._tiles[name]
+        got = (numbers or {}).get(name)
         if name == "waveform":
-            cols = min(planes_out.shape[2], 240)
-            if self._wave_counts is None or self._wave_counts.shape[2] != cols:
-                self._wave_counts = np.zeros((3, 256, cols), np.uint32)
-            counts = waveform(planes_out, space=spec.space, rows=256, columns=cols,
-                              out=self._wave_counts)
+            if got is not None:
+                counts = got
+            else:
+                cols = min(planes_out.shape[2], 240)
+                if self._wave_counts is None or self._wave_counts.shape[2] != cols:
+                    self._wave_counts = np.zeros((3, 256, cols), np.uint32)
+                counts = waveform(planes_out, space=spec.space, rows=256, columns=cols,
+                                  out=self._wave_counts)
             return draw.draw_waveform(counts, space=spec.space, size=(TILE_H, TILE_W),
                                       out=tile)
         if name == "vectorscope":
-            self._vs_hist = vectorscope(planes_out, space=spec.space, standard=flow.standard,
-                                        out=self._vs_hist)
-            return draw.draw_vectorscope(self._vs_hist, standard=flow.standard, size=TILE_H,
+            if got is not None:
+                hist = got
+            else:
+                hist = self._vs_hist = vectorscope(planes_out, space=spec.space,
+                                                   standard=flow.standard, out=self._vs_hist)
+            return draw.draw_vectorscope(hist, standard=flow.standard, size=TILE_H,
                                          out=self._vscope)
         if name == "transfer":
             vin = np.linspace(spec.sweep_v[0], spec.sweep_v[1], CURVE_POINTS)
@@ -331,9 +362,11 @@ class Composer:
                 self._curve_key = key
             view = transfer_view(vin, self._curve, planes_in, bins=128)
             return draw.draw_transfer(view, space=spec.space, size=(TILE_H, TILE_W), out=tile)
-        lim = converter_limits_v(spec.space, converter_bits=spec.converter_bits,
-                                 converter_legal=spec.converter_legal)
-        alarms = level_alarms(planes_out, space=spec.space, converter_limits_v=lim)
+        alarms = got
+        if alarms is None:
+            lim = converter_limits_v(spec.space, converter_bits=spec.converter_bits,
+                                     converter_legal=spec.converter_legal)
+            alarms = level_alarms(planes_out, space=spec.space, converter_limits_v=lim)
         return draw.draw_alarms(alarms, size=(TILE_H, TILE_W), out=tile)
 
     def _status(self, st: Status) -> np.ndarray:
@@ -436,7 +469,7 @@ class Composer:
 
     # ---- the whole image ----------------------------------------------------------------
     def compose(self, src_rgb: np.ndarray, flow, *, view: ViewState, status: Status,
-                controls: dict | None = None) -> np.ndarray:
+                controls: dict | None = None, numbers: dict | None = None) -> np.ndarray:
         """Draw the composite for the frame *flow* has just processed.
 
         Parameters
@@ -449,6 +482,9 @@ class Composer:
         status : Status
         controls : dict, optional
             The control values used for the frame (``flow.last_controls``).
+        numbers : dict, optional
+            Monitor numbers made ahead by :meth:`measure` for this frame; monitors
+            without them are measured here.
 
         Returns
         -------
@@ -466,10 +502,11 @@ class Composer:
         canvas[y0:y0 + nh, x0:x0 + nw] = pic
         tm["picture"] = (time.perf_counter() - t) * 1e3
         tiles = []
+        numbers = numbers or {}
         step = self.step_for(*flow.planes_out.shape[1:])
         t = time.perf_counter()
         scoped_out = self._sampled("out", flow.planes_out, step) \
-            if {"waveform", "vectorscope"} & set(view.monitors) else None
+            if {"waveform", "vectorscope"} & (set(view.monitors) - set(numbers)) else None
         scoped_in = self._sampled("in", flow.planes_in, step) \
             if "transfer" in view.monitors else None
         tm["sampling"] = (time.perf_counter() - t) * 1e3
@@ -477,7 +514,7 @@ class Composer:
             t = time.perf_counter()
             planes = flow.planes_out if name == "alarms" else scoped_out
             tiles.append((_TILE_LABELS[name], self._monitor(name, flow, planes, scoped_in,
-                                                            controls)))
+                                                            controls, numbers)))
             tm[name] = (time.perf_counter() - t) * 1e3
         t = time.perf_counter()
         tiles.append(("", self._status(status)))

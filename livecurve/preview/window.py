@@ -66,6 +66,9 @@ FONT_DIRS = ("/usr/share/fonts/truetype/dejavu", "/usr/share/fonts/truetype",
              "/usr/share/fonts")
 #: Seconds between looks at the chain file's mtime.
 WATCH_PERIOD_S = 0.5
+#: Longest a new frame waits for a knob's rebuild (seconds): about one frame period at
+#: 30 frames/s, longer than a one-run rebuild of the demo chains (5–15 ms measured).
+KNOB_WAIT_S = 0.03
 #: Frames the decoder may hold ahead of the window.
 BUFFER_FRAMES = 2
 #: Pictures with more samples than this are shown and scoped from every second line and
@@ -175,6 +178,46 @@ class PlayClock:
         self.paused_at = None
 
 
+class ReadyFrame:
+    """A planar frame with the chain's output, the window's views of it
+    (:meth:`FrameFlow.make_views`) and the monitors' numbers (:meth:`Composer.measure`),
+    made ahead on the decoder thread.
+
+    Shown as made when :attr:`token` still matches the session (the same flow, engine,
+    bypass and control index); otherwise the window runs the chain again.
+    """
+
+    __slots__ = ("frame", "out", "controls", "token", "views", "numbers")
+
+    def __init__(self, frame, out, controls, token, views, numbers=None):
+        self.frame, self.out, self.controls, self.token = frame, out, controls, token
+        self.views, self.numbers = views, numbers
+
+    @property
+    def index(self) -> int:
+        return self.frame.index
+
+    @property
+    def time_s(self) -> float:
+        return self.frame.time_s
+
+    @property
+    def lap(self) -> int:
+        return self.frame.lap
+
+    @property
+    def y(self):
+        return self.frame.y
+
+    @property
+    def cb(self):
+        return self.frame.cb
+
+    @property
+    def cr(self):
+        return self.frame.cr
+
+
 class FramePump:
     """Decode a source on a background thread into a buffer of at most *capacity* frames.
 
@@ -182,6 +225,10 @@ class FramePump:
     newer one, so the buffer holds the freshest frames while the decoder runs no faster
     than real time.  With ``loop`` off, the pump stops at the end of a pass (``ended``)
     and holds the first frame of the next pass until :meth:`restart`.
+
+    *prepare*, when given, is called as ``prepare(seq, frame)`` on the decoder thread for
+    each frame before it is buffered, and its result is buffered instead (the window runs
+    the chain on the next frames there while it shows the present one).
 
     Attributes
     ----------
@@ -192,8 +239,9 @@ class FramePump:
     """
 
     def __init__(self, src, clock: PlayClock, *, capacity: int = BUFFER_FRAMES,
-                 loop: bool = True, clock_fn=time.perf_counter):
+                 loop: bool = True, clock_fn=time.perf_counter, prepare=None):
         self.src = src
+        self.prepare = prepare
         self.clock = clock
         self.capacity = int(capacity)
         self.loop = loop
@@ -242,6 +290,11 @@ class FramePump:
         with self._cond:
             seq = self._seq
             self._seq += 1
+        if self.prepare is not None:
+            # the heavy per-frame work, on this thread while the window shows the frame
+            # before (outside the lock: the window thread keeps taking frames meanwhile)
+            fr = self.prepare(seq, fr)
+        with self._cond:
             while not self._stop:
                 if len(self._buf) < self.capacity:
                     self._buf.append((seq, fr))
@@ -347,7 +400,7 @@ class PreviewSession:
         self.note = ""
         self.canvas = None
         self.in_legal = True
-        self._out_planes = None
+        self._chain_lock = threading.Lock()
         self._scope_step = scope_step
 
     @property
@@ -516,24 +569,67 @@ class PreviewSession:
         from livecurve.outputs.render import flash_volts
         self._check_live_inputs()
         flow = self.flow
-        if self._out_planes is None or self._out_planes[0].shape != fr.y.shape:
-            self._out_planes = (np.empty_like(fr.y), np.empty_like(fr.cb),
-                                np.empty_like(fr.cr))
-        out = flow.process_planes(fr.y, fr.cb, fr.cr, index, in_legal=self.in_legal,
-                                  out=self._out_planes)
-        src_rgb = flow.view_planes((fr.y, fr.cb, fr.cr), out, step=view_step(self.info),
-                                   in_legal=self.in_legal, source_rgb=self.view.split)
-        if self._scope_step is None:   # scopes read at most SCOPE_SAMPLES samples a frame
-            n = flow.planes_out.shape[1] * flow.planes_out.shape[2]
-            self.composer.scope_step = max(1, math.ceil(math.sqrt(n / SCOPE_SAMPLES)))
+        step = view_step(self.info)
+        numbers = None
+        if isinstance(fr, ReadyFrame) and fr.token == self._token(index):
+            out, ctl_used = fr.out, fr.controls      # made ahead on the decoder thread
+            src_rgb = flow.show_views(fr.views)
+            numbers = fr.numbers
+        else:
+            fr = fr.frame if isinstance(fr, ReadyFrame) else fr
+            out, ctl_used = self._run_chain(fr, index)
+            src_rgb = flow.view_planes((fr.y, fr.cb, fr.cr), out, step=step,
+                                       in_legal=self.in_legal, source_rgb=self.view.split)
+        self._set_scope_step(flow.planes_out)
         if new_frame and self._flash is not None and not flow.bypass:
             self._check_flash(index, flash_volts(flow, out))
-        ctl = {} if flow.bypass else flow.last_controls
+        ctl = {} if flow.bypass else ctl_used
         if new_frame:
             self.composer.push_controls(ctl)
         self.canvas = self.composer.compose(src_rgb, flow, view=self.view,
-                                            status=self.status(**status), controls=ctl)
+                                            status=self.status(**status), controls=ctl,
+                                            numbers=numbers)
         return self.canvas
+
+    def _set_scope_step(self, planes_out) -> None:
+        """Scopes read at most SCOPE_SAMPLES samples a frame (unless a step was given)."""
+        if self._scope_step is None:
+            n = planes_out.shape[1] * planes_out.shape[2]
+            self.composer.scope_step = max(1, math.ceil(math.sqrt(n / SCOPE_SAMPLES)))
+
+    def _token(self, index: int) -> tuple:
+        """What a frame's chain output and views depend on besides the frame: the flow,
+        its engine (a knob turn swaps it), bypass, the input range, the split view, and the
+        control index."""
+        f = self.flow
+        return (id(f), id(f.engine), f.bypass, self.in_legal, self.view.split, index)
+
+    def _run_chain(self, fr, index: int):
+        """The chain on every view_step-th line of a planar frame: (output planes, the
+        control values used).  The picture, the monitors and the flash estimate read no
+        other lines, and each line goes through the chain as in a full pass (it is
+        filtered along itself)."""
+        flow = self.flow
+        out = (np.empty_like(fr.y), np.empty_like(fr.cb), np.empty_like(fr.cr))
+        with self._chain_lock:
+            flow.process_planes(fr.y, fr.cb, fr.cr, index, in_legal=self.in_legal, out=out,
+                                line_step=view_step(self.info))
+            ctl = dict(flow.last_controls)
+        return out, ctl
+
+    def prepare(self, seq: int, fr):
+        """For :class:`FramePump`: run the chain on a planar frame ahead of showing it."""
+        if not hasattr(fr, "y"):
+            return fr
+        index = fr.index if self.use_clip_index else seq
+        token = self._token(index)
+        out, ctl = self._run_chain(fr, index)
+        flow = self.flow
+        views = flow.make_views((fr.y, fr.cb, fr.cr), out, step=view_step(self.info),
+                                in_legal=self.in_legal, source_rgb=token[4])
+        self._set_scope_step(views[1])
+        numbers = self.composer.measure(flow, views[1], tuple(self.view.monitors))
+        return ReadyFrame(fr, out, ctl, token, views, numbers)
 
     def _check_live_inputs(self) -> None:
         """Report a lost device, overflows or starved reads in the window and on the console
@@ -583,7 +679,7 @@ class _Player:
         self.max_frames = max_frames
         self.title = f"livecurve preview - {session.chain_path.name}"
         self.clock = PlayClock(session.info.fps, time.perf_counter())
-        self.pump = FramePump(src, self.clock, loop=True)
+        self.pump = FramePump(src, self.clock, loop=True, prepare=session.prepare)
         self.rebuilder = Rebuilder(session.build_flow, session.flow.engine)
         self.win = SliderWindow(cv2, self.title, session)
         self.shown = 0
@@ -610,6 +706,13 @@ class _Player:
         # While tables are rebuilt on the worker, the window thread's numba kernels run on
         # one thread: both at once on two cores would oversubscribe them (results are the
         # same with any number of threads).
+        if new_frame and self.rebuilder.busy:
+            # a knob just turned: most rebuilds (one run's 1-D tables) take a few ms, so
+            # wait for them up to KNOB_WAIT_S rather than draw one more frame of the old
+            # curve; a long one (a 2-D table) goes on while frames keep coming
+            self.numba.set_num_threads(1)
+            if self.rebuilder.wait_knobs(KNOB_WAIT_S):
+                self.take_results()
         self.numba.set_num_threads(1 if self.rebuilder.busy else self.threads)
         draw_frame = s.render_planes if hasattr(fr, "y") else s.render
         canvas = draw_frame(fr if hasattr(fr, "y") else fr.rgb, idx, new_frame=new_frame,
@@ -808,7 +911,7 @@ def write_snapshot(session: PreviewSession, fr, output, *, force: bool = False) 
 
 def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), exact=False,
                 monitors=None, max_frames=None, force: bool = False, drift: bool = False,
-                speedup: float | None = None, planar: bool = False) -> int:
+                speedup: float | None = None, planar: bool = True) -> int:
     """Preview a chain on a source: a live window, or one composite written to a PNG.
 
     Parameters
@@ -827,8 +930,9 @@ def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), ex
     exact : bool
         Solver per pixel instead of tables (slow).
     planar : bool
-        Run the window on the clip's Y′CbCr planes (one-pass kernel, reduced monitors).  Off
-        by default: measured slower in the window than the R′G′B′ path on 2 cores
+        Run the window on the clip's Y′CbCr planes (one-pass kernel, monitors on reduced
+        views) when the clip and chain allow it (:func:`planar_ok`); False forces the
+        R′G′B′ path.  On by default: it drops fewer frames in the window on 2 cores
         (benchmarks/README.md, "Real time at HD").
     monitors : sequence of str or str, optional
         Monitors shown at the start, from ``waveform vectorscope transfer alarms``.

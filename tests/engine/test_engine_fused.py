@@ -242,3 +242,107 @@ def test_sampled_volts_match_the_reference_conversion():
     codes = np.stack([y, cb, cr], -1)[::4, ::4].astype(np.float64)
     rgb = colour.YCbCr_to_RGB(codes, K=K709, in_bits=8, in_legal=True, in_int=True)
     assert np.allclose(v, np.moveaxis(rgb * 0.7 - 0.35, -1, 0), atol=2e-6)
+
+
+# ---- the line filters across a band's lines (vector lanes) -------------------------------
+from livecurve.engine import fused as _f  # noqa: E402  (kernels, tested directly)
+from livecurve.engine.dynamics import StageDynamics, discretise  # noqa: E402
+from livecurve.engine.linefilters import apply_line_filter  # noqa: E402
+
+T_PIX = 1 / 74.25e6
+#: (dynamics, the lane kernel expected to run it; 0 = the line filters' own kernel)
+LANE_CASES = {
+    "pole": (StageDynamics(gbw_hz=50e6, noise_gain=3.0), 2),
+    "resonance": (StageDynamics(f0_hz=10e6, zeta=0.3), 3),
+    "pole+resonance": (StageDynamics(gbw_hz=120e6, noise_gain=2.0, f0_hz=18e6, zeta=0.6), 4),
+    "pole+slew": (StageDynamics(gbw_hz=50e6, noise_gain=3.0, slew_v_per_us=20.0), 1),
+    "slew only": (StageDynamics(slew_v_per_us=150.0), 1),
+    "pole+resonance+slew": (StageDynamics(gbw_hz=50e6, noise_gain=3.0, slew_v_per_us=20.0,
+                                          f0_hz=12e6, zeta=0.35), 0),
+}
+
+
+def _lane_run(cf, form, rows, blank):
+    """The band path of _runs_band: lanes in blocks of _XB samples, states carried."""
+    lanes = np.zeros((_f._XB, _f.BAND), np.float32)
+    st = np.zeros((4, _f.BAND))
+    out = rows.copy()
+    w = rows.shape[1]
+    for x0 in range(0, w, _f._XB):
+        x1 = min(x0 + _f._XB, w)
+        lanes[:x1 - x0] = rows[:, x0:x1].T
+        _f._lane_filter(cf, form, blank, lanes, x1 - x0, st, x0 == 0)
+        out[:, x0:x1] = lanes[:x1 - x0].T
+    return out
+
+
+@pytest.mark.parametrize("name", list(LANE_CASES))
+def test_lane_filter_equals_the_line_filter(name):
+    # The line filters' own kernel (four interleaved rows, checked against scipy lsim and
+    # ngspice in test_engine_dynamics*.py) is the reference; the lane kernels must give
+    # the same samples.  Input: steps and full-swing noise, so rate limits engage.
+    dyn, form = LANE_CASES[name]
+    lf = discretise(dyn, T_PIX)
+    assert lf.n_blocks == 1
+    assert _f._lane_form(lf.coef[0]) == form
+    rng = np.random.default_rng(11)
+    w = 1000                                  # not a multiple of the block of samples
+    rows = rng.normal(0.0, 0.05, (_f.BAND, w))
+    rows[:, 200:400] += 0.7                   # a bar: steps up and down
+    rows[3] = rng.uniform(-0.35, 0.35, w)     # a line of full-swing noise
+    rows = rows.astype(np.float32)
+    blank = float(np.float32(-0.3))
+    want = apply_line_filter(rows, lf, blank_level_v=blank)
+    if form == 0:
+        return                                # runs on the reference kernel itself
+    got = _lane_run(lf.coef[0], form, rows, blank)
+    # the same float64 arithmetic in the same order: measured bit for bit equal
+    assert np.array_equal(got, want)
+
+
+def test_fused_line_filter_nan_from_a_table_is_reported():
+    # NaN can reach a line filter only from a table holding it: the band path then checks
+    spec = load_chain(chain_path("shadow_crush"))
+    engine = FrameEngine(spec, pixel_period_s=T_PIX)
+    assert engine.runs[0][0].line_filter is not None
+    engine.runs[0][0].table.values[100:140] = np.nan
+    y, cb, cr = _picture(1)
+    from livecurve.errors import MediaError
+    with pytest.raises(MediaError, match="line filter"):
+        _fused(engine, spec).process(y, cb, cr)
+
+
+@pytest.mark.parametrize("name", DEMOS)
+@pytest.mark.parametrize("sub", ["444", "420"])
+def test_fused_line_step_runs_only_the_lines_asked_for(name, sub):
+    spec = load_chain(chain_path(name))
+    engine = FrameEngine(spec, modulated=[KNOBS[name]], pixel_period_s=T_PIX)
+    ls = spec.live[KNOBS[name]]
+    h, w = 36, 96
+    ctl = {KNOBS[name]: ls.lo + (ls.hi - ls.lo) * (0.5 + 0.5 * np.sin(np.arange(h) / 4.0))}
+    if sub == "444":
+        y, cb, cr = _picture(6, h, w)
+    else:
+        y, cb, cr = _picture(6, h, w, ch=h // 2, cw=w // 2)
+    full = _fused(engine, spec).process(y, cb, cr, controls=ctl)
+    out = tuple(np.full_like(a, 7) for a in (y, cb, cr))
+    got = _fused(engine, spec).process(y, cb, cr, controls=ctl, out=out, line_step=2)
+    # every second line as the full pass makes it (lines are filtered along themselves)
+    assert np.array_equal(got[0][::2], full[0][::2])
+    assert (got[0][1::2] == 7).all()                  # the others left as they were
+    if spec.space == "ypbpr" and name == "night_knee":
+        assert np.array_equal(got[1], cb) and np.array_equal(got[2], cr)
+    elif sub == "444":
+        for i in (1, 2):
+            assert np.array_equal(got[i][::2], full[i][::2])
+    else:
+        # a 4:2:0 chroma line is made from its one run line, not the mean of two: on a
+        # picture whose lines are all alike the two are the same
+        flat = tuple(np.ascontiguousarray(np.broadcast_to(a[:1], a.shape)) for a in (y, cb, cr))
+        want = _fused(engine, spec).process(*flat)
+        got = _fused(engine, spec).process(*flat, line_step=2)
+        assert np.array_equal(got[0][::2], want[0][::2])
+        for i in (1, 2):
+            assert np.array_equal(got[i], want[i])
+    with pytest.raises(ValueError, match="line_step"):
+        _fused(engine, spec).process(y, cb, cr, line_step=0)

@@ -27,7 +27,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from livecurve.monitors.flash import FlashMeter
+from livecurve.monitors.flash import FlashMeter, cell_luminance
 
 FPS = 30.0
 ROWS, COLS = 9, 16          # the meter's default grid: 144 cells of equal area
@@ -53,7 +53,7 @@ def _exact_grey(lum):
     w = _CellMeter()._weights
     rgb = np.full(3, float(lum))
     for _ in range(200):
-        got = float(rgb @ w)
+        got = float(cell_luminance(rgb, w))
         if got == lum:
             return rgb
         rgb[2] = np.nextafter(rgb[2], np.inf if got < lum else -np.inf)
@@ -80,7 +80,8 @@ def test_general_flash_change_threshold(delta, counted):
     lo = _exact_grey(100.0)
     hi = _exact_grey(100.0 + delta)
     w = _CellMeter()._weights
-    assert hi @ w - lo @ w == (20.0 if delta == 20.0 else pytest.approx(delta))
+    assert cell_luminance(hi, w) - cell_luminance(lo, w) == (
+        20.0 if delta == 20.0 else pytest.approx(delta))
     rep = _run(lo, hi)
     assert (rep.max_flashes_per_s == 10) is counted, rep
     assert rep.max_flashes_per_s in (0, 10)
