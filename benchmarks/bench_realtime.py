@@ -133,6 +133,10 @@ def bench_ffmpeg(clip: Path, tmp: Path, frames: int) -> dict:
 
 def bench_render(clip: Path, tmp: Path, frames: int, chains) -> dict:
     res = {}
+    for name in chains:   # warm numba's cache first (a compile is paid once per install)
+        timed(cli("render", "--chain", ROOT / "configs" / f"{name}.toml", clip,
+                  tmp / f"w_{name}.mp4", "--force", "--quiet", "--duration", "0.3"),
+              env=env_with_checkout())
     for name in chains:
         r = timed(cli("render", "--chain", ROOT / "configs" / f"{name}.toml", clip,
                       tmp / f"r_{name}.mp4", "--force", "--quiet"), env=env_with_checkout(),
@@ -183,6 +187,9 @@ def bench_preview(clips: dict, chains, max_frames: int) -> dict:
     try:
         env = env_with_checkout(DISPLAY=display)
         env.pop("QT_QPA_PLATFORM", None)
+        for name in chains:   # warm numba's cache first, as for the renders
+            timed(cli("preview", "--chain", ROOT / "configs" / f"{name}.toml",
+                      next(iter(clips.values())), "--max-frames", 10), env=env)
         for fmt, clip in clips.items():
             for name in chains:
                 r = timed(cli("preview", "--chain", ROOT / "configs" / f"{name}.toml", clip,

@@ -5,17 +5,24 @@ The reference path turns a decoded picture into R′G′B′ codes, then into pl
 filters over whole planes (:class:`livecurve.engine.pipeline.FrameEngine`), and turns
 the volts back into codes (:func:`~livecurve.signal.levels.volts_to_codes`).  Every step
 streams full frames through memory.  This module does the same arithmetic in one numba
-kernel that walks a band of sixteen scan lines at a time while they sit in cache, parallel over
-bands of lines, and stays in the clip's own Y′CbCr domain:
+kernel that walks a band of sixteen scan lines at a time while they sit in cache, parallel
+over bands of lines, and stays in the clip's own Y′CbCr domain:
 
 codes → volts
     Y′ = (code − y_lo)/y_span, Pb/Pr = (code − c_mid)/c_span (ITU-R BT.601/BT.709 code
     levels, :mod:`livecurve.signal.codes`), scaled to 700 mV and centred; an ``rgb``
     chain takes one matrix (Y′PbPr → R′G′B′ of the standard) here.
 each run's table, then its line filter
-    The same (bi)linear lookup as :mod:`livecurve.engine.tables` (float32) and the very
-    line-filter routine of :mod:`livecurve.engine.linefilters`, so a line comes out as
-    the reference path's does.
+    The same (bi)linear lookup as :mod:`livecurve.engine.tables` (float32): first every
+    sample's index and fraction (a loop that vectorises), then one 8-byte read of the
+    entry and its step to the next (a 2-D table first blends its two columns once per
+    line, at the line's control).  The line filter runs with the band's sixteen lines as
+    vector lanes (a line's recursion is serial along it, but the lines are independent),
+    sixty-four samples at a time so the lanes stay in cache; its arithmetic is the line
+    filters' own (:mod:`livecurve.engine.linefilters`, eqs. 1 and 4), so a line comes out
+    as the reference path's does, bit for bit (tested).  Blocks the lanes do not cover
+    (several blocks, a general output row, a multi-state rate limit) run through the line
+    filters' own kernel.
 output converter
     As :func:`~livecurve.signal.levels.volts_to_codes`: clip to the converter's permitted
     codes, round half up, back to normalised values; an ``rgb`` chain clips to the
@@ -31,6 +38,9 @@ between two luma lines.  Upsampling is linear between neighbouring chroma sample
 [¼ ½ ¼] filter across and the mean of the two lines down; edges repeat the last sample.
 A ``ypbpr`` chain whose chroma channel has no stages never resamples it: a plane without
 stages goes through the converter as a 256-entry table of codes.
+
+*line_step* runs every n-th line only, for a view that reads no others (the preview at
+1080p); each line is computed as in a full pass.
 
 What the kernel does not do (the caller keeps the reference path for these): the solver
 per pixel (``--exact``), controls varying per pixel, sources deeper than 8 bits.
@@ -538,22 +548,30 @@ def _blend_columns(tab, t_off, n, m, cpos, kc, i0, lstep, blend):
 def _table_lookup(pair, t_off, m, blend, idx, frac, x0, x1, lanes, to_lanes, vc):
     """Interpolate samples x0 … x1−1 of each line from their pairs: into *lanes*
     (sample-major from x0, a line a lane) when *to_lanes*, else back into the lines *vc*."""
+    if to_lanes:
+        # a sample at a time across the lines: the lanes are written in order
+        if m == 1:
+            pr = pair[t_off:]
+            for x in range(x0, x1):
+                ln = lanes[x - x0]
+                for r in range(BAND):
+                    z = pr[idx[r, x]]
+                    ln[r] = z.real + frac[r, x] * z.imag
+        else:
+            for x in range(x0, x1):
+                ln = lanes[x - x0]
+                for r in range(BAND):
+                    z = blend[r, idx[r, x]]
+                    ln[r] = z.real + frac[r, x] * z.imag
+        return
     for r in range(BAND):
         ir = idx[r]
         fr = frac[r]
-        if m == 1:
-            pr = pair[t_off:]
-        else:
-            pr = blend[r]
-        if to_lanes:
-            for x in range(x0, x1):
-                z = pr[ir[x]]
-                lanes[x - x0, r] = z.real + fr[x] * z.imag
-        else:
-            row = vc[r]
-            for x in range(x0, x1):
-                z = pr[ir[x]]
-                row[x] = z.real + fr[x] * z.imag
+        pr = pair[t_off:] if m == 1 else blend[r]
+        row = vc[r]
+        for x in range(x0, x1):
+            z = pr[ir[x]]
+            row[x] = z.real + fr[x] * z.imag
 
 
 @nb.njit(cache=True)
@@ -670,11 +688,12 @@ def _lane_filter(cf, form, blank, lanes, w, lane_st, start):
 
 @nb.njit(cache=True)
 def _from_lanes(lanes, x0, x1, vc):
-    """Lanes (samples x0 … x1−1, a line a lane) back into the band's lines."""
-    for r in range(BAND):
-        row = vc[r]
-        for x in range(x0, x1):
-            row[x] = lanes[x - x0, r]
+    """Lanes (samples x0 … x1−1, a line a lane) back into the band's lines (read in
+    order, written across the lines: measured twice as fast as the other way round)."""
+    for x in range(x0, x1):
+        ln = lanes[x - x0]
+        for r in range(BAND):
+            vc[r, x] = ln[r]
 
 
 @nb.njit(cache=True, fastmath=_FM)

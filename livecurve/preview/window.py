@@ -71,9 +71,10 @@ WATCH_PERIOD_S = 0.5
 KNOB_WAIT_S = 0.03
 #: Frames the decoder may hold ahead of the window.
 BUFFER_FRAMES = 2
-#: Pictures with more samples than this are shown and scoped from every second line and
-#: sample (planar path): 1080p is read as 960x540, 720p in full.
-VIEW_FULL_MAX_SAMPLES = 1280 * 720
+#: Samples a second the planar preview's picture and monitors read at most: above it they
+#: read every second (third, …) line and sample, so the window keeps time at a fixed cost
+#: per second: 1080p30 and 720p60 are read as 960x540 and 640x360, 720p30 in full.
+VIEW_MAX_SAMPLES_PER_S = 1280 * 720 * 30
 
 
 #: Samples the planar preview's scopes read per frame at most (a fixed cost per frame).
@@ -81,8 +82,14 @@ SCOPE_SAMPLES = 260_000
 
 
 def view_step(info) -> int:
-    """Lines and samples between those the planar preview's picture and monitors read."""
-    return 1 if info.width * info.height <= VIEW_FULL_MAX_SAMPLES else 2
+    """Lines and samples between those the planar preview's picture and monitors read:
+    the smallest step that keeps them within :data:`VIEW_MAX_SAMPLES_PER_S`."""
+    fps = float(info.fps or 30.0)
+    step = 1
+    while math.ceil(info.width / step) * math.ceil(info.height / step) * fps \
+            > VIEW_MAX_SAMPLES_PER_S and step < 8:
+        step += 1
+    return step
 
 
 def emit(event: str, stream=None, **fields) -> None:
@@ -291,6 +298,13 @@ class FramePump:
             seq = self._seq
             self._seq += 1
         if self.prepare is not None:
+            if self.clock.late(seq, self._now()):
+                # already overdue: dropped before any work on it, so that a chain slower
+                # than the clip drops frames and keeps time instead of slowing down
+                with self._cond:
+                    self.dropped += 1
+                    self._cond.notify_all()
+                return
             # the heavy per-frame work, on this thread while the window shows the frame
             # before (outside the lock: the window thread keeps taking frames meanwhile)
             fr = self.prepare(seq, fr)
@@ -679,6 +693,10 @@ class _Player:
         self.max_frames = max_frames
         self.title = f"livecurve preview - {session.chain_path.name}"
         self.clock = PlayClock(session.info.fps, time.perf_counter())
+        # the schedule starts when the first picture is shown (opening the window and
+        # making the first frame take a while): no frame is late before that
+        self.clock.pause(time.perf_counter())
+        self.started = False
         self.pump = FramePump(src, self.clock, loop=True, prepare=session.prepare)
         self.rebuilder = Rebuilder(session.build_flow, session.flow.engine)
         self.win = SliderWindow(cv2, self.title, session)
@@ -771,6 +789,9 @@ class _Player:
         if not (self.paused or self.ended):
             if self.pending is None:
                 self.pending = self.pump.take(now)
+            if self.pending is not None and not self.started:
+                self.started = True
+                self.clock.resume(now, self.pending[0])
             if self.pending is not None and self.clock.due(self.pending[0]) <= now + 0.002:
                 self.held, self.pending = self.pending, None
                 self.display(self.held, new_frame=True)

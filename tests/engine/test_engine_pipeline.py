@@ -121,6 +121,50 @@ max = "10k"
     assert all(r.table.is_2d for r in eng.runs[1])
 
 
+KNOBS_ON_PRE_AND_POST = """
+[live.pre_rf]
+target = "pre.r_f"
+min = "8k"
+max = "16k"
+[live.post_rf]
+target = "post.r_f"
+min = "6k"
+max = "10k"
+"""
+
+
+def test_a_hand_turned_knob_never_shares_a_modulated_run(tmp_path):
+    spec = _write(tmp_path, SPLIT_CHAIN.format(soft_channels="[0]") + KNOBS_ON_PRE_AND_POST)
+    eng = FrameEngine(spec, modulated=["pre_rf"])
+    # channel 1: pre (modulated) and post (turned by hand) would fuse; they are kept apart
+    assert _ids(eng.runs[1]) == [["pre"], ["post"]]
+    assert [r.knob for r in eng.runs[1]] == ["pre_rf", None]
+    assert eng.runs[1][0].table.is_2d and not eng.runs[1][1].table.is_2d
+    # turning post_rf rebuilds post's 1-D table only: the 2-D table is the same object
+    first = [rs[0].table for rs in eng.runs]
+    eng.set_live("post_rf", 9e3)
+    assert all(rs[0].table is t for rs, t in zip(eng.runs, first, strict=True))
+    assert eng.runs[1][1].table is not None
+    # with no knob modulated, the two stages fuse as before
+    assert _ids(FrameEngine(spec).runs[1]) == [["pre", "post"]]
+
+
+def test_kept_apart_runs_keep_the_dc_transfer(tmp_path):
+    # the DC solver's whole-channel transfer (an independent reference: it never splits
+    # the chain into tables) at the modulated knob's value and a turned knob
+    spec = _write(tmp_path, SPLIT_CHAIN.format(soft_channels="[0]") + KNOBS_ON_PRE_AND_POST)
+    eng = FrameEngine(spec, modulated=["pre_rf"], pixel_period_s=1 / 74.25e6)
+    eng.set_live("post_rf", 7.5e3)
+    levels = np.linspace(-0.3, 0.3, 7)
+    planes = np.repeat(levels.astype(np.float32)[None, :, None], 3, axis=0)
+    planes = np.ascontiguousarray(np.broadcast_to(planes, (3, 7, 400)))
+    out = eng.process(planes, controls={"pre_rf": 11e3})
+    ref = ChainModel(spec).transfer_all(levels, live={"pre_rf": 11e3, "post_rf": 7.5e3})
+    for ch in (1, 2):
+        bound = sum(r.table.err_v for r in eng.runs[ch]) + F32_SLACK_V
+        np.testing.assert_allclose(out[ch, :, -1], ref[ch], atol=bound, rtol=0)
+
+
 def test_unknown_modulated_knob_is_refused(tmp_path):
     spec = _write(tmp_path, SPLIT_CHAIN.format(soft_channels="[0]"))
     with pytest.raises(ConfigError, match="no_such_knob"):
@@ -132,7 +176,8 @@ def test_unknown_modulated_knob_is_refused(tmp_path):
 
 @pytest.fixture(scope="module")
 def knee_engine():
-    """night_knee with its knee current modulated: one 2-D table on Y′."""
+    """night_knee with its knee current modulated: a 2-D table on Y′ for the knee stage
+    (the hand-turned black trim is a run of its own after it)."""
     spec = load_chain(chain_path("night_knee"))
     return spec, FrameEngine(spec, modulated=["knee_current"])
 

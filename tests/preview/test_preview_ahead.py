@@ -1,0 +1,203 @@
+"""The window's work made ahead on the decoder thread, and knob turns that wait briefly.
+
+The decoder thread runs the chain, the window's views and the monitors' numbers for the
+next frames (``FramePump(prepare=...)``, ``PreviewSession.prepare``) while the window shows
+the present one.  What is checked: a frame made ahead draws exactly the composite the
+window would have drawn itself; one made before a knob turn, bypass or a reload is made
+again; overdue frames are dropped before any work is spent on them; a quick knob build is
+waited for, a reload is not.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+
+import numpy as np
+import pytest
+
+from livecurve.media.planes import PlaneClipSource
+from livecurve.media.probe import probe
+from livecurve.outputs.demo import chain_path, demo_clip
+from livecurve.preview import keys
+from livecurve.preview.keys import Rebuilder, engine_with
+from livecurve.preview.window import FramePump, PlayClock, PreviewSession, ReadyFrame
+from tests.preview.test_preview_session import FPS, FakeSource, _until
+
+STATUS = dict(frame=0, time_s=0.0, fps_shown=30.0, dropped=0, paused=False, ended=False,
+              loop=True, rebuilding=False)
+
+
+# ---- decoder thread -------------------------------------------------------------------------
+def test_pump_prepares_frames_in_order_and_drops_overdue_ones_unprepared():
+    now = [0.0]
+    made = []
+
+    def prepare(seq, fr):
+        made.append(seq)
+        return ("made", seq, fr)
+
+    pump = FramePump(FakeSource(), PlayClock(FPS, 0.0), capacity=2,
+                     clock_fn=lambda: now[0], prepare=prepare)
+    try:
+        for k in range(5):
+            now[0] = k / FPS
+            seq, item = pump.take(now[0], wait_s=2.0)
+            assert seq == k and item == ("made", k, item[2]) and item[2].index == k
+        # the window is away for 30 frame periods: the frames decoded meanwhile are
+        # overdue and are dropped as they come, without being made
+        now[0] = 40.0 / FPS
+        assert _until(lambda: len(pump.buffered()) == 2 and pump.buffered()[0] >= 39)
+        got = pump.buffered()
+        assert all(s in made for s in got)
+        skipped = [s for s in range(7, got[0]) if s not in made]
+        assert len(skipped) >= 25 and pump.dropped >= len(skipped)
+    finally:
+        pump.close()
+
+
+# ---- frames made ahead ----------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def clip_frames():
+    info = probe(demo_clip())
+    with PlaneClipSource(info, duration_s=0.2) as src:
+        frames = [next(src) for _ in range(3)]
+    return info, frames
+
+
+def _session(info):
+    return PreviewSession(chain_path("shadow_crush"), info)
+
+
+def _count_runs(s, monkeypatch):
+    calls = []
+    real = s._run_chain
+
+    def spy(fr, index):
+        calls.append(index)
+        return real(fr, index)
+
+    monkeypatch.setattr(s, "_run_chain", spy)
+    return calls
+
+
+def test_a_frame_made_ahead_draws_what_the_window_would_draw(clip_frames, monkeypatch):
+    info, frames = clip_frames
+    fr = frames[1]
+    own = _session(info)
+    want = own.render_planes(fr, fr.index, **STATUS).copy()
+    s = _session(info)
+    ready = s.prepare(fr.index, fr)
+    assert isinstance(ready, ReadyFrame) and ready.numbers     # monitors measured ahead
+    calls = _count_runs(s, monkeypatch)
+    got = s.render_planes(ready, fr.index, **STATUS)
+    assert calls == []                                         # drawn as made, not re-run
+    np.testing.assert_array_equal(got, want)
+
+
+@pytest.mark.parametrize("change", ["knob", "bypass", "split"])
+def test_a_frame_made_before_a_change_is_made_again(clip_frames, monkeypatch, change):
+    info, frames = clip_frames
+    fr = frames[2]
+    s = _session(info)
+    ready = s.prepare(fr.index, fr)
+    before = s.render_planes(ready, fr.index, **STATUS).copy()
+    if change == "knob":
+        s.flow.engine = engine_with(s.flow.engine, {"crush_point": s.spec.live["crush_point"].hi})
+    elif change == "bypass":
+        s.flow.bypass = True
+    else:
+        s.view.split = True
+    calls = _count_runs(s, monkeypatch)
+    got = s.render_planes(ready, fr.index, **STATUS).copy()
+    assert calls == [fr.index]                                 # the chain ran again
+    assert not np.array_equal(got, before)
+    # and it is what a window that never made anything ahead draws after the same change
+    own = _session(info)
+    if change == "knob":
+        own.flow.engine = s.flow.engine
+    elif change == "bypass":
+        own.flow.bypass = True
+    else:
+        own.view.split = True
+    np.testing.assert_array_equal(got, own.render_planes(fr, fr.index, **STATUS))
+
+
+# ---- knob turns ---------------------------------------------------------------------------
+def test_a_quick_knob_build_is_waited_for(clip_frames):
+    info, _ = clip_frames
+    s = _session(info)
+    rb = Rebuilder(s.build_flow, s.flow.engine)
+    try:
+        assert rb.wait_knobs(0.0)                    # nothing asked: nothing to wait for
+        rb.want_knobs({"crush_point": s.spec.live["crush_point"].hi})
+        assert rb.wait_knobs(10.0)
+        kind, eng, err = rb.results.get_nowait()     # there when the wait ends
+        assert (kind, err) == ("knobs", None)
+        assert eng.state.live["crush_point"] == s.spec.live["crush_point"].hi
+    finally:
+        rb.close()
+
+
+def test_a_slow_knob_build_times_out_and_a_reload_is_not_waited_for(clip_frames, monkeypatch):
+    info, _ = clip_frames
+    s = _session(info)
+    gate = threading.Event()
+    real = keys.engine_with
+
+    def slow(engine, live):
+        gate.wait(10.0)
+        return real(engine, live)
+
+    monkeypatch.setattr(keys, "engine_with", slow)
+    rb = Rebuilder(s.build_flow, s.flow.engine)
+    try:
+        rb.want_knobs({"crush_point": s.spec.live["crush_point"].lo})
+        t0 = time.perf_counter()
+        assert not rb.wait_knobs(0.05)
+        assert time.perf_counter() - t0 < 2.0
+        gate.set()
+        assert rb.wait_knobs(10.0)
+        assert rb.results.get(timeout=10)[0] == "knobs"
+        gate.clear()
+
+        def slow_flow(carry):
+            gate.wait(10.0)
+            return s.build_flow(carry)
+
+        rb2 = Rebuilder(slow_flow, s.flow.engine)
+        try:
+            rb2.want_reload({})
+            assert _until(lambda: rb2.busy)
+            t0 = time.perf_counter()
+            assert rb2.wait_knobs(5.0)                # a reload is not a knob turn
+            assert time.perf_counter() - t0 < 1.0
+        finally:
+            gate.set()
+            rb2.close()
+    finally:
+        gate.set()
+        rb.close()
+
+
+# ---- how much of the picture the window reads -------------------------------------------
+class _Info:
+    def __init__(self, w, h, fps):
+        self.width, self.height, self.fps = w, h, fps
+
+
+@pytest.mark.parametrize("w, h, fps, step", [
+    (1280, 720, 30.0, 1),      # 27.6 M samples/s: in full
+    (1920, 1080, 30.0, 2),     # 62 M/s in full; 960x540 reads 15.6 M/s
+    (1280, 720, 60.0, 2),      # 55 M/s in full; 640x360
+    (1920, 1080, 60.0, 3),     # 960x540 would be 31 M/s
+    (720, 576, 25.0, 1),
+    (3840, 2160, 30.0, 3),     # 1280x720 at 30: exactly the budget
+])
+def test_view_step_keeps_the_samples_read_a_second_within_the_budget(w, h, fps, step):
+    from livecurve.preview.window import VIEW_MAX_SAMPLES_PER_S, view_step
+    got = view_step(_Info(w, h, fps))
+    assert got == step
+    rate = lambda s: -(-w // s) * -(-h // s) * fps   # noqa: E731 - samples a second at step s
+    assert rate(got) <= VIEW_MAX_SAMPLES_PER_S
+    assert got == 1 or rate(got - 1) > VIEW_MAX_SAMPLES_PER_S   # the smallest such step
