@@ -64,6 +64,9 @@ CANVAS_H, CANVAS_W = PIC_H + GAP + TILE_H, PIC_W + GAP + TILE_W
 CURVE_POINTS = 256
 #: Pictures with more samples than this are read by the scopes at every 2nd line and sample.
 SCOPE_FULL_MAX_SAMPLES = 1280 * 720
+#: Monitor redraws a second at most: a clip faster than this redraws its monitors on every
+#: n-th frame shown (n = round(fps / MONITOR_MAX_HZ)), the picture on every frame.
+MONITOR_MAX_HZ = 30.0
 #: Frames of control history drawn as the control trace.
 TRACE_FRAMES = 150
 
@@ -246,6 +249,7 @@ class Composer:
         self._status_bg[:] = _PANEL_BG
         self._wave_counts = None
         self._vs_hist = None
+        self._drawn_monitors = None   # (monitors on, their tiles) as last drawn
         self._mask = None
         self._curve_key = None
         self._curve = None
@@ -469,7 +473,8 @@ class Composer:
 
     # ---- the whole image ----------------------------------------------------------------
     def compose(self, src_rgb: np.ndarray, flow, *, view: ViewState, status: Status,
-                controls: dict | None = None, numbers: dict | None = None) -> np.ndarray:
+                controls: dict | None = None, numbers: dict | None = None,
+                monitors_due: bool = True) -> np.ndarray:
         """Draw the composite for the frame *flow* has just processed.
 
         Parameters
@@ -485,6 +490,9 @@ class Composer:
         numbers : dict, optional
             Monitor numbers made ahead by :meth:`measure` for this frame; monitors
             without them are measured here.
+        monitors_due : bool
+            False: keep the monitor tiles drawn last time (the same monitors on), and
+            draw only the picture and the status (see :data:`MONITOR_MAX_HZ`).
 
         Returns
         -------
@@ -503,19 +511,25 @@ class Composer:
         tm["picture"] = (time.perf_counter() - t) * 1e3
         tiles = []
         numbers = numbers or {}
-        step = self.step_for(*flow.planes_out.shape[1:])
-        t = time.perf_counter()
-        scoped_out = self._sampled("out", flow.planes_out, step) \
-            if {"waveform", "vectorscope"} & (set(view.monitors) - set(numbers)) else None
-        scoped_in = self._sampled("in", flow.planes_in, step) \
-            if "transfer" in view.monitors else None
-        tm["sampling"] = (time.perf_counter() - t) * 1e3
-        for name in view.monitors:
+        kept = self._drawn_monitors
+        if not monitors_due and kept is not None and kept[0] == tuple(view.monitors):
+            tiles = list(kept[1])          # the monitor tiles as last drawn
+        else:
+            step = self.step_for(*flow.planes_out.shape[1:])
             t = time.perf_counter()
-            planes = flow.planes_out if name == "alarms" else scoped_out
-            tiles.append((_TILE_LABELS[name], self._monitor(name, flow, planes, scoped_in,
-                                                            controls, numbers)))
-            tm[name] = (time.perf_counter() - t) * 1e3
+            scoped_out = self._sampled("out", flow.planes_out, step) \
+                if {"waveform", "vectorscope"} & (set(view.monitors) - set(numbers)) else None
+            scoped_in = self._sampled("in", flow.planes_in, step) \
+                if "transfer" in view.monitors else None
+            tm["sampling"] = (time.perf_counter() - t) * 1e3
+            for name in view.monitors:
+                t = time.perf_counter()
+                planes = flow.planes_out if name == "alarms" else scoped_out
+                tiles.append((_TILE_LABELS[name], self._monitor(name, flow, planes,
+                                                                scoped_in, controls,
+                                                                numbers)))
+                tm[name] = (time.perf_counter() - t) * 1e3
+            self._drawn_monitors = (tuple(view.monitors), tuple(tiles))
         t = time.perf_counter()
         tiles.append(("", self._status(status)))
         tm["status"] = (time.perf_counter() - t) * 1e3

@@ -59,7 +59,15 @@ from livecurve.preview.keys import (
     action_for,
     engine_with,
 )
-from livecurve.preview.overlay import MONITORS, Composer, Knob, Status, ViewState, check_monitors
+from livecurve.preview.overlay import (
+    MONITOR_MAX_HZ,
+    MONITORS,
+    Composer,
+    Knob,
+    Status,
+    ViewState,
+    check_monitors,
+)
 
 #: Font folders tried for Qt's labels (Debian's DejaVu first).
 FONT_DIRS = ("/usr/share/fonts/truetype/dejavu", "/usr/share/fonts/truetype",
@@ -557,6 +565,7 @@ class PreviewSession:
         if new_frame:
             self.composer.push_controls(ctl)
         self.canvas = self.composer.compose(rgb, self.flow, view=self.view,
+                                            monitors_due=self._monitors_due(new_frame),
                                             status=self.status(**status), controls=ctl)
         return self.canvas
 
@@ -601,9 +610,20 @@ class PreviewSession:
         if new_frame:
             self.composer.push_controls(ctl)
         self.canvas = self.composer.compose(src_rgb, flow, view=self.view,
+                                            monitors_due=self._monitors_due(new_frame),
                                             status=self.status(**status), controls=ctl,
                                             numbers=numbers)
         return self.canvas
+
+    def _monitors_due(self, new_frame: bool) -> bool:
+        """Redraw the monitors on this frame?  Every frame up to MONITOR_MAX_HZ frames a
+        second, every n-th new frame of a faster clip; always on a redraw of a held frame
+        (a knob, a toggle)."""
+        if not new_frame:
+            return True
+        every = max(1, round(float(self.info.fps or 30.0) / MONITOR_MAX_HZ))
+        self._new_frames = getattr(self, "_new_frames", -1) + 1
+        return self._new_frames % every == 0
 
     def _set_scope_step(self, planes_out) -> None:
         """Scopes read at most SCOPE_SAMPLES samples a frame (unless a step was given)."""

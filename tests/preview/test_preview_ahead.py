@@ -201,3 +201,34 @@ def test_view_step_keeps_the_samples_read_a_second_within_the_budget(w, h, fps, 
     rate = lambda s: -(-w // s) * -(-h // s) * fps   # noqa: E731 - samples a second at step s
     assert rate(got) <= VIEW_MAX_SAMPLES_PER_S
     assert got == 1 or rate(got - 1) > VIEW_MAX_SAMPLES_PER_S   # the smallest such step
+
+
+# ---- monitors of a fast clip ------------------------------------------------------------
+def test_a_clip_faster_than_30_fps_redraws_its_monitors_every_other_frame(clip_frames):
+    import dataclasses
+
+    from livecurve.preview.overlay import PIC_H, PIC_W
+    from tests.preview.test_preview_session import _slot
+    info, frames = clip_frames
+
+    def draw(fps):
+        s = _session(dataclasses.replace(info, fps=fps))
+        return [s.render_planes(fr, fr.index, **STATUS).copy() for fr in frames[:3]], s
+
+    def same_monitors(a, b):
+        return all(np.array_equal(_slot(a, i), _slot(b, i)) for i in range(4))
+
+    at60, _ = draw(60.0)
+    assert same_monitors(at60[1], at60[0])            # frame 1: monitors kept
+    assert not same_monitors(at60[2], at60[1])        # frame 2: redrawn
+    for a, b in ((at60[0], at60[1]), (at60[1], at60[2])):
+        assert not np.array_equal(a[:PIC_H, :PIC_W], b[:PIC_H, :PIC_W])   # the picture moves
+    # a held frame redrawn (a knob, a toggle) always redraws its monitors: frame 1 held
+    # shows frame 1's monitors, not the kept ones of frame 0
+    s = _session(dataclasses.replace(info, fps=60.0))
+    first = s.render_planes(frames[0], frames[0].index, **STATUS).copy()
+    kept = s.render_planes(frames[1], frames[1].index, **STATUS).copy()
+    held = s.render_planes(frames[1], frames[1].index, new_frame=False, **STATUS)
+    assert same_monitors(kept, first) and not same_monitors(held, first)
+    at30, _ = draw(30.0)
+    assert not same_monitors(at30[1], at30[0])        # 30 frames/s: every frame
