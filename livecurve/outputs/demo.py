@@ -16,8 +16,20 @@ import numpy as np
 from livecurve.errors import LivecurveError
 
 ROOT = Path(__file__).resolve().parents[2]
-DEMO_CLIP = ROOT / "clips" / "demo.mp4"
+#: The copies a wheel carries (setup.py); a checkout uses configs/ and clips/ themselves.
+PACKED = Path(__file__).resolve().parents[1] / "_demo"
 DEMO_CHAINS = ("night_knee", "shadow_crush", "film_shoulder")
+
+
+def _demo_file(folder: str, name: str) -> Path:
+    """*name* in the checkout's *folder*, else the installed package's copy of it."""
+    here = ROOT / folder / name
+    if here.is_file() or not (PACKED / name).is_file():
+        return here
+    return PACKED / name
+
+
+DEMO_CLIP = _demo_file("clips", "demo.mp4")
 
 
 def demo_clip() -> Path:
@@ -25,7 +37,7 @@ def demo_clip() -> Path:
     if not DEMO_CLIP.is_file():
         import subprocess
         import sys
-        script = ROOT / "clips" / "make_demo_clip.py"
+        script = _demo_file("clips", "make_demo_clip.py")
         if not script.is_file():
             raise LivecurveError(f"demo clip {DEMO_CLIP} and its script are missing")
         subprocess.run([sys.executable, str(script)], check=True, cwd=str(ROOT))
@@ -33,7 +45,8 @@ def demo_clip() -> Path:
 
 
 def chain_path(name: str) -> Path:
-    return ROOT / "configs" / f"{name}.toml"
+    """The demo chain file *name* (``configs/NAME.toml``)."""
+    return _demo_file("configs", f"{name}.toml")
 
 
 def demo_files(quick: bool = False) -> list[str]:
