@@ -64,6 +64,7 @@ from livecurve.engine.linefilters import (
     NMAX,
     _filter_group,
     _one_state_slew,
+    lin_map,
 )
 from livecurve.errors import MediaError, SolverError
 from livecurve.signal.codes import code_range
@@ -615,18 +616,7 @@ def _lane_filter(cf, form, blank, lanes, w, lane_st, start):
     rest at the blanking level: u = x − blank, y = blank + C·x[n+1]
     (:mod:`livecurve.engine.linefilters`, eqs. 1 and 4)."""
     n = int(cf[K_N])
-    w5 = NMAX + 2
-    a11 = cf[K_LIN]
-    a12 = cf[K_LIN + 1]
-    g1 = cf[K_LIN + NMAX]
-    a21 = cf[K_LIN + w5]
-    a22 = cf[K_LIN + w5 + 1]
-    a23 = cf[K_LIN + w5 + 2]
-    g2 = cf[K_LIN + w5 + NMAX]
-    a31 = cf[K_LIN + 2 * w5]
-    a32 = cf[K_LIN + 2 * w5 + 1]
-    a33 = cf[K_LIN + 2 * w5 + 2]
-    g3 = cf[K_LIN + 2 * w5 + NMAX]
+    a11, a12, _, g1, a21, a22, a23, g2, a31, a32, a33, g3 = lin_map(cf)
     cl = cf[K_C + n - 1]
     p = lane_st[0]
     q = lane_st[1]

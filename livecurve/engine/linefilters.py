@@ -521,6 +521,17 @@ def _filter_group(src, bits, coef, blank, dst, bad_rows, i0, buf, pad_in, pad_ou
             d3[j] = b3[j] + blank
 
 
+@numba.njit(cache=True)
+def lin_map(cf):
+    """A block's linear map [Φ | Γ] (eq. 1) as (a11, a12, a13, g1, a21, a22, a23, g2, a31,
+    a32, a33, g3): a_ij = Φ[i, j], g_i = Γ[i] (zeros past the block's states)."""
+    w5 = NMAX + 2
+    return (cf[K_LIN], cf[K_LIN + 1], cf[K_LIN + 2], cf[K_LIN + NMAX],
+            cf[K_LIN + w5], cf[K_LIN + w5 + 1], cf[K_LIN + w5 + 2], cf[K_LIN + w5 + NMAX],
+            cf[K_LIN + 2 * w5], cf[K_LIN + 2 * w5 + 1], cf[K_LIN + 2 * w5 + 2],
+            cf[K_LIN + 2 * w5 + NMAX])
+
+
 @numba.njit(cache=True, fastmath={"contract"})
 def _block(cf, i0, i1, i2, i3, o0, o1, o2, o3, b_in, b_out, st, xs, xn):
     """Four rows through one block: u = i_r − b_in, o_r = y + b_out (eqs. 1–4).
@@ -537,18 +548,7 @@ def _block(cf, i0, i1, i2, i3, o0, o1, o2, o3, b_in, b_out, st, xs, xn):
             last_only = False
     cl = cf[K_C + n - 1]
     w5 = NMAX + 2                    # map row: [Φ_i0, Φ_i1, Φ_i2 | Γ_i | Σc_i]
-    a11 = cf[K_LIN]
-    a12 = cf[K_LIN + 1]
-    a13 = cf[K_LIN + 2]
-    g1 = cf[K_LIN + NMAX]
-    a21 = cf[K_LIN + w5]
-    a22 = cf[K_LIN + w5 + 1]
-    a23 = cf[K_LIN + w5 + 2]
-    g2 = cf[K_LIN + w5 + NMAX]
-    a31 = cf[K_LIN + 2 * w5]
-    a32 = cf[K_LIN + 2 * w5 + 1]
-    a33 = cf[K_LIN + 2 * w5 + 2]
-    g3 = cf[K_LIN + 2 * w5 + NMAX]
+    a11, a12, a13, g1, a21, a22, a23, g2, a31, a32, a33, g3 = lin_map(cf)
     sw = K_SLW + w5                  # second row of the slewing map
     sw2 = K_SLW + 2 * w5
     sg2 = (cf[K_SLW], cf[K_SLW + 1], cf[K_SLW + NMAX], cf[K_SLW + NMAX + 1],

@@ -102,25 +102,6 @@ def test_split_runs_keep_the_dc_transfer(tmp_path):
     np.testing.assert_allclose(out[:, :, -1], ref, atol=bound, rtol=0)
 
 
-def test_two_modulated_knobs_never_share_a_run(tmp_path):
-    text = SPLIT_CHAIN.format(soft_channels="[0]") + """
-[live.pre_rf]
-target = "pre.r_f"
-min = "8k"
-max = "16k"
-[live.post_rf]
-target = "post.r_f"
-min = "6k"
-max = "10k"
-"""
-    spec = _write(tmp_path, text)
-    eng = FrameEngine(spec, modulated=["pre_rf", "post_rf"])
-    # channel 1: pre and post would fuse, but each carries its own modulated knob
-    assert _ids(eng.runs[1]) == [["pre"], ["post"]]
-    assert [r.knob for r in eng.runs[1]] == ["pre_rf", "post_rf"]
-    assert all(r.table.is_2d for r in eng.runs[1])
-
-
 KNOBS_ON_PRE_AND_POST = """
 [live.pre_rf]
 target = "pre.r_f"
@@ -131,6 +112,15 @@ target = "post.r_f"
 min = "6k"
 max = "10k"
 """
+
+
+def test_two_modulated_knobs_never_share_a_run(tmp_path):
+    spec = _write(tmp_path, SPLIT_CHAIN.format(soft_channels="[0]") + KNOBS_ON_PRE_AND_POST)
+    eng = FrameEngine(spec, modulated=["pre_rf", "post_rf"])
+    # channel 1: pre and post would fuse, but each carries its own modulated knob
+    assert _ids(eng.runs[1]) == [["pre"], ["post"]]
+    assert [r.knob for r in eng.runs[1]] == ["pre_rf", "post_rf"]
+    assert all(r.table.is_2d for r in eng.runs[1])
 
 
 def test_a_hand_turned_knob_never_shares_a_modulated_run(tmp_path):
