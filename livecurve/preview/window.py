@@ -422,7 +422,8 @@ class PreviewSession:
         self.note = ""
         self.canvas = None
         self.in_legal = True
-        self._chain_lock = threading.Lock()
+        self._chain_lock = threading.Lock()   # one chain run at a time (two threads run it)
+        self._new_frames = -1                  # new frames drawn, less one
         self._scope_step = scope_step
 
     @property
@@ -622,7 +623,7 @@ class PreviewSession:
         if not new_frame:
             return True
         every = max(1, round(float(self.info.fps or 30.0) / MONITOR_MAX_HZ))
-        self._new_frames = getattr(self, "_new_frames", -1) + 1
+        self._new_frames += 1
         return self._new_frames % every == 0
 
     def _set_scope_step(self, planes_out) -> None:
@@ -657,10 +658,11 @@ class PreviewSession:
             return fr
         index = fr.index if self.use_clip_index else seq
         token = self._token(index)
+        split = token[4]      # the split view needs the source's picture as well
         out, ctl = self._run_chain(fr, index)
         flow = self.flow
         views = flow.make_views((fr.y, fr.cb, fr.cr), out, step=view_step(self.info),
-                                in_legal=self.in_legal, source_rgb=token[4])
+                                in_legal=self.in_legal, source_rgb=split)
         self._set_scope_step(views[1])
         numbers = self.composer.measure(flow, views[1], tuple(self.view.monitors))
         return ReadyFrame(fr, out, ctl, token, views, numbers)
