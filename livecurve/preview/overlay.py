@@ -251,8 +251,8 @@ class Composer:
         self._vs_hist = None
         self._drawn_monitors = None   # (monitors on, their tiles) as last drawn
         self._mask = None
-        self._curve_key = None
-        self._curve = None
+        self._own_curve: dict = {}     # transfer curves drawn on the window thread
+        self._ahead_curve: dict = {}   # … and made ahead on the decoder thread
         self.traces: dict[str, deque] = {}
         self.timings_ms: dict[str, float] = {}
         self._phase = 0
@@ -310,14 +310,20 @@ class Composer:
             draw.zebra_overlay(pic, small, out=pic)
         return pic
 
-    def measure(self, flow, planes_out: np.ndarray, monitors) -> dict:
-        """The numbers of the monitors that read only the output picture (waveform,
-        vectorscope, level alarms), for *planes_out* (views as :meth:`FrameFlow.make_views`
+    def measure(self, flow, planes_out: np.ndarray, monitors, *, planes_in=None,
+                controls: dict | None = None) -> dict:
+        """The monitors' numbers for one frame's views (as :meth:`FrameFlow.make_views`
         makes them), in new arrays: the window makes them ahead, on the decoder thread, and
-        :meth:`compose` draws them (``numbers=``).  Monitors not on are not measured."""
+        :meth:`compose` draws them (``numbers=``).  Monitors not on are not measured; the
+        transfer view needs *planes_in* and the frame's *controls*."""
         spec = flow.spec
         out: dict = {}
         on = set(monitors)
+        if "transfer" in on and planes_in is not None:
+            step = self.step_for(*planes_in.shape[1:])
+            sc_in = planes_in if step == 1 else np.ascontiguousarray(planes_in[:, ::step, ::step])
+            vin, curve = self._transfer_curve(flow, controls or {}, self._ahead_curve)
+            out["transfer"] = transfer_view(vin, curve, sc_in, bins=128)
         if {"waveform", "vectorscope"} & on:
             step = self.step_for(*planes_out.shape[1:])
             sc = planes_out if step == 1 else np.ascontiguousarray(
@@ -332,6 +338,19 @@ class Composer:
                                      converter_legal=spec.converter_legal)
             out["alarms"] = level_alarms(planes_out, space=spec.space, converter_limits_v=lim)
         return out
+
+    @staticmethod
+    def _transfer_curve(flow, controls: dict, cache: dict):
+        """(input volts, the chain's DC curves at the frame's mean controls), kept in *cache*
+        while the engine and the control means stay the same (one cache per thread)."""
+        spec = flow.spec
+        key = (spec.sweep_v, tuple(sorted((n, round(float(np.mean(v)), 12))
+                                          for n, v in controls.items())))
+        if cache.get("engine") is not flow.engine or cache.get("key") != key:
+            vin = np.linspace(spec.sweep_v[0], spec.sweep_v[1], CURVE_POINTS)
+            cache.update(engine=flow.engine, key=key, vin=vin,
+                         curve=dc_curves(flow.engine, vin, controls))
+        return cache["vin"], cache["curve"]
 
     def _monitor(self, name: str, flow, planes_out, planes_in, controls,
                  numbers: dict | None = None) -> np.ndarray:
@@ -358,13 +377,10 @@ class Composer:
             return draw.draw_vectorscope(hist, standard=flow.standard, size=TILE_H,
                                          out=self._vscope)
         if name == "transfer":
-            vin = np.linspace(spec.sweep_v[0], spec.sweep_v[1], CURVE_POINTS)
-            key = (id(flow.engine), tuple(sorted((n, round(float(np.mean(v)), 12))
-                                                 for n, v in controls.items())))
-            if key != self._curve_key:
-                self._curve = dc_curves(flow.engine, vin, controls)
-                self._curve_key = key
-            view = transfer_view(vin, self._curve, planes_in, bins=128)
+            view = got
+            if view is None:
+                vin, curve = self._transfer_curve(flow, controls, self._own_curve)
+                view = transfer_view(vin, curve, planes_in, bins=128)
             return draw.draw_transfer(view, space=spec.space, size=(TILE_H, TILE_W), out=tile)
         alarms = got
         if alarms is None:
@@ -520,7 +536,7 @@ class Composer:
             scoped_out = self._sampled("out", flow.planes_out, step) \
                 if {"waveform", "vectorscope"} & (set(view.monitors) - set(numbers)) else None
             scoped_in = self._sampled("in", flow.planes_in, step) \
-                if "transfer" in view.monitors else None
+                if "transfer" in (set(view.monitors) - set(numbers)) else None
             tm["sampling"] = (time.perf_counter() - t) * 1e3
             for name in view.monitors:
                 t = time.perf_counter()

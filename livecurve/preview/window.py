@@ -606,7 +606,8 @@ class PreviewSession:
                                        in_legal=self.in_legal, source_rgb=self.view.split)
         self._set_scope_step(flow.planes_out)
         if new_frame and self._flash is not None and not flow.bypass:
-            self._check_flash(index, flash_volts(flow, out))
+            fv = (numbers or {}).get("flash")
+            self._check_flash(index, flash_volts(flow, out) if fv is None else fv)
         ctl = {} if flow.bypass else ctl_used
         if new_frame:
             self.composer.push_controls(ctl)
@@ -664,7 +665,12 @@ class PreviewSession:
         views = flow.make_views((fr.y, fr.cb, fr.cr), out, step=view_step(self.info),
                                 in_legal=self.in_legal, source_rgb=split)
         self._set_scope_step(views[1])
-        numbers = self.composer.measure(flow, views[1], tuple(self.view.monitors))
+        bypass = token[2]
+        numbers = self.composer.measure(flow, views[1], tuple(self.view.monitors),
+                                        planes_in=views[0], controls={} if bypass else ctl)
+        if self._flash is not None and not bypass:
+            from livecurve.outputs.render import flash_volts
+            numbers["flash"] = flash_volts(flow, out)
         return ReadyFrame(fr, out, ctl, token, views, numbers)
 
     def _check_live_inputs(self) -> None:

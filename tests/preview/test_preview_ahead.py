@@ -65,8 +65,8 @@ def clip_frames():
     return info, frames
 
 
-def _session(info):
-    return PreviewSession(chain_path("shadow_crush"), info)
+def _session(info, chain="shadow_crush"):
+    return PreviewSession(chain_path(chain), info)
 
 
 def _count_runs(s, monkeypatch):
@@ -81,18 +81,29 @@ def _count_runs(s, monkeypatch):
     return calls
 
 
-def test_a_frame_made_ahead_draws_what_the_window_would_draw(clip_frames, monkeypatch):
+@pytest.mark.parametrize("chain", ["shadow_crush", "night_knee"])
+def test_a_frame_made_ahead_draws_what_the_window_would_draw(clip_frames, monkeypatch, chain):
+    # night_knee: its knee follows the clip's soundtrack, so the controls, the transfer
+    # curve at them and the flash estimate are made ahead as well
+    import dataclasses
     info, frames = clip_frames
     fr = frames[1]
-    own = _session(info)
+    own = _session(info, chain)
     want = own.render_planes(fr, fr.index, **STATUS).copy()
-    s = _session(info)
+    s = _session(info, chain)
     ready = s.prepare(fr.index, fr)
-    assert isinstance(ready, ReadyFrame) and ready.numbers     # monitors measured ahead
+    assert isinstance(ready, ReadyFrame)
+    made = {"waveform", "vectorscope", "transfer", "alarms"}
+    if chain == "night_knee":
+        made.add("flash")
+        assert ready.controls and own._flash is not None
+    assert set(ready.numbers) == made                          # measured ahead
     calls = _count_runs(s, monkeypatch)
     got = s.render_planes(ready, fr.index, **STATUS)
     assert calls == []                                         # drawn as made, not re-run
     np.testing.assert_array_equal(got, want)
+    if chain == "night_knee":
+        assert dataclasses.asdict(s._flash.report()) == dataclasses.asdict(own._flash.report())
 
 
 @pytest.mark.parametrize("change", ["knob", "bypass", "split"])
