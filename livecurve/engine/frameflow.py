@@ -142,6 +142,7 @@ class FrameFlow:
         self.planes_in = np.empty((3, height, width), dtype=np.float32)
         self.planes_out = np.empty((3, height, width), dtype=np.float32)
         self.rgb_out = np.empty((height, width, 3), dtype=self.out_dtype)
+        self._views_lent = False   # the three above point at arrays show_views was given
         self.bypass = False
         #: Thermal drift: junction temperatures follow the chain's warm-up profile and
         #: self-heating; tables are rebuilt when they move by more than a threshold.
@@ -259,29 +260,51 @@ class FrameFlow:
         :meth:`make_views`); returns the picture to show beside them (the source's R′G′B′
         when made, else :attr:`rgb_out`)."""
         self.planes_in, self.planes_out, self.rgb_out, src = views
+        self._views_lent = True        # process() must not write into them
         return self.rgb_out if src is None else src
 
     def process(self, rgb: np.ndarray, frame_index: int) -> np.ndarray:
         """Run one decoded frame through the chain; returns the output R′G′B′ codes
         (a buffer reused on the next call)."""
-        bits = None
         h, w = rgb.shape[:2]
-        if self.planes_in.shape != (3, h, w):   # after view_planes pointed them elsewhere
+        if self.planes_in.shape != (3, h, w) or self._views_lent:
+            # after view_planes / show_views pointed them at arrays of someone else's
             self.planes_in = np.empty((3, h, w), dtype=np.float32)
             self.planes_out = np.empty((3, h, w), dtype=np.float32)
             self.rgb_out = np.empty((h, w, 3), dtype=self.out_dtype)
-        codes_to_volts(rgb, space=self.spec.space, standard=self.standard, bits=bits,
-                       out=self.planes_in)
+            self._views_lent = False
+        ctl = self._process_into(rgb, frame_index, self.planes_in, self.planes_out,
+                                 self.rgb_out)
+        if ctl is not None:
+            self.last_controls = ctl
+        return self.rgb_out
+
+    def process_fresh(self, rgb: np.ndarray, frame_index: int) -> tuple:
+        """As :meth:`process`, into new arrays and without touching the flow's own (another
+        thread may make frames ahead with it): ``(planes_in, planes_out, rgb_out, controls
+        used)``, the controls None when bypassed."""
+        h, w = rgb.shape[:2]
+        pin = np.empty((3, h, w), dtype=np.float32)
+        pout = np.empty((3, h, w), dtype=np.float32)
+        rout = np.empty((h, w, 3), dtype=self.out_dtype)
+        ctl = self._process_into(rgb, frame_index, pin, pout, rout)
+        return pin, pout, rout, ctl
+
+    def _process_into(self, rgb, frame_index: int, planes_in, planes_out, rgb_out):
+        """codes → volts → chain → output codes into the given arrays; returns the control
+        values used (None when bypassed)."""
+        codes_to_volts(rgb, space=self.spec.space, standard=self.standard, bits=None,
+                       out=planes_in)
+        ctl = None
         if self.bypass:
-            np.copyto(self.planes_out, self.planes_in)
+            np.copyto(planes_out, planes_in)
         else:
             if self.follower is not None:
                 self.follower.maybe_update(self.engine, frame_index / self.fps)
             ctl = self.control_values(frame_index)
-            self.last_controls = ctl
-            self.engine.process(self.planes_in, controls=ctl, out=self.planes_out)
-        volts_to_codes(self.planes_out, space=self.spec.space, standard=self.standard,
+            self.engine.process(planes_in, controls=ctl, out=planes_out)
+        volts_to_codes(planes_out, space=self.spec.space, standard=self.standard,
                        converter_bits=self.spec.converter_bits,
                        converter_legal=self.spec.converter_legal, out_dtype=self.out_dtype,
-                       out=self.rgb_out)
-        return self.rgb_out
+                       out=rgb_out)
+        return ctl

@@ -424,6 +424,7 @@ class PreviewSession:
         self.in_legal = True
         self._chain_lock = threading.Lock()   # one chain run at a time (two threads run it)
         self._new_frames = -1                  # new frames drawn, less one
+        self.shown_controls = None             # control values of the frame drawn last
         self._scope_step = scope_step
 
     @property
@@ -468,7 +469,8 @@ class PreviewSession:
 
     def knobs(self) -> list[Knob]:
         out = []
-        ctl = self.flow.last_controls
+        # the controls of the frame on show (frames are made ahead on another thread)
+        ctl = self.flow.last_controls if self.shown_controls is None else self.shown_controls
         for name, ls in self.spec.live.items():
             drv = self.driven_by(name)
             value = self.wanted.get(name, ls.value)
@@ -555,19 +557,31 @@ class PreviewSession:
             setattr(st, k, v)
         return st
 
-    def render(self, rgb: np.ndarray, index: int, *, new_frame: bool = True,
-               **status) -> np.ndarray:
-        """Process one decoded frame and draw the composite (BGR, reused buffer)."""
+    def render(self, rgb, index: int, *, new_frame: bool = True, **status) -> np.ndarray:
+        """Process one decoded frame (R′G′B′ codes, or a :class:`ReadyFrame` made ahead)
+        and draw the composite (BGR, reused buffer)."""
         self._check_live_inputs()
-        self.flow.process(rgb, index)
+        numbers = None
+        ready = rgb if isinstance(rgb, ReadyFrame) else None
+        if ready is not None:
+            rgb = ready.frame.rgb
+        if ready is not None and ready.token == self._token(index):
+            self.flow.show_views(ready.views)        # made ahead on the decoder thread
+            ctl_used, numbers = ready.controls, ready.numbers
+        else:
+            with self._chain_lock:
+                self.flow.process(rgb, index)
+                ctl_used = self.flow.last_controls
         if new_frame and self._flash is not None and not self.flow.bypass:
             self._check_flash(index)
-        ctl = {} if self.flow.bypass else self.flow.last_controls
+        self.shown_controls = ctl_used
+        ctl = {} if self.flow.bypass else ctl_used
         if new_frame:
             self.composer.push_controls(ctl)
         self.canvas = self.composer.compose(rgb, self.flow, view=self.view,
                                             monitors_due=self._monitors_due(new_frame),
-                                            status=self.status(**status), controls=ctl)
+                                            status=self.status(**status), controls=ctl,
+                                            numbers=numbers)
         return self.canvas
 
     def _check_flash(self, index: int, planes=None) -> None:
@@ -608,6 +622,7 @@ class PreviewSession:
         if new_frame and self._flash is not None and not flow.bypass:
             fv = (numbers or {}).get("flash")
             self._check_flash(index, flash_volts(flow, out) if fv is None else fv)
+        self.shown_controls = ctl_used
         ctl = {} if flow.bypass else ctl_used
         if new_frame:
             self.composer.push_controls(ctl)
@@ -654,11 +669,12 @@ class PreviewSession:
         return out, ctl
 
     def prepare(self, seq: int, fr):
-        """For :class:`FramePump`: run the chain on a planar frame ahead of showing it."""
-        if not hasattr(fr, "y"):
-            return fr
+        """For :class:`FramePump`: run the chain on a frame ahead of showing it, and make
+        the window's views and the monitors' numbers of it."""
         index = fr.index if self.use_clip_index else seq
         token = self._token(index)
+        if not hasattr(fr, "y"):
+            return self._prepare_rgb(fr, index, token)
         split = token[4]      # the split view needs the source's picture as well
         out, ctl = self._run_chain(fr, index)
         flow = self.flow
@@ -672,6 +688,19 @@ class PreviewSession:
             from livecurve.outputs.render import flash_volts
             numbers["flash"] = flash_volts(flow, out)
         return ReadyFrame(fr, out, ctl, token, views, numbers)
+
+    def _prepare_rgb(self, fr, index: int, token: tuple):
+        """:meth:`prepare` for a decoded R′G′B′ frame (a camera, a still, a clip the
+        one-pass kernel does not take): the whole frame through the chain, into arrays of
+        its own."""
+        flow = self.flow
+        with self._chain_lock:
+            pin, pout, rout, ctl = flow.process_fresh(fr.rgb, index)
+        ctl = {} if ctl is None else ctl
+        bypass = token[2]
+        numbers = self.composer.measure(flow, pout, tuple(self.view.monitors),
+                                        planes_in=pin, controls={} if bypass else ctl)
+        return ReadyFrame(fr, rout, ctl, token, (pin, pout, rout, None), numbers)
 
     def _check_live_inputs(self) -> None:
         """Report a lost device, overflows or starved reads in the window and on the console
@@ -761,7 +790,8 @@ class _Player:
                 self.take_results()
         self.numba.set_num_threads(1 if self.rebuilder.busy else self.threads)
         draw_frame = s.render_planes if hasattr(fr, "y") else s.render
-        canvas = draw_frame(fr if hasattr(fr, "y") else fr.rgb, idx, new_frame=new_frame,
+        arg = fr if hasattr(fr, "y") or isinstance(fr, ReadyFrame) else fr.rgb
+        canvas = draw_frame(arg, idx, new_frame=new_frame,
                             frame=fr.index, time_s=fr.time_s, fps_shown=self.fps_shown(),
                             dropped=self.pump.dropped, paused=self.paused, ended=self.ended,
                             loop=self.pump.loop, rebuilding=self.rebuilder.busy)

@@ -243,3 +243,50 @@ def test_a_clip_faster_than_30_fps_redraws_its_monitors_every_other_frame(clip_f
     assert same_monitors(kept, first) and not same_monitors(held, first)
     at30, _ = draw(30.0)
     assert not same_monitors(at30[1], at30[0])        # 30 frames/s: every frame
+
+
+# ---- the R′G′B′ path (camera, stills, clips the one-pass kernel does not take) -------------
+@pytest.fixture(scope="module")
+def rgb_frames():
+    from livecurve.media.source import open_source
+    with open_source(demo_clip(), duration_s=0.2) as src:
+        info = src.info
+        frames = [src.read() for _ in range(3)]
+    return info, frames
+
+
+def test_an_rgb_frame_made_ahead_draws_what_the_window_would_draw(rgb_frames, monkeypatch):
+    info, frames = rgb_frames
+    fr = frames[1]
+    own = _session(info, "night_knee")
+    want = own.render(fr.rgb, fr.index, **STATUS).copy()
+    s = _session(info, "night_knee")
+    ready = s.prepare(fr.index, fr)
+    assert isinstance(ready, ReadyFrame) and not hasattr(ready, "y")
+    assert set(ready.numbers) == {"waveform", "vectorscope", "transfer", "alarms"}
+    calls = []
+    real = s.flow.process
+    monkeypatch.setattr(s.flow, "process", lambda *a: calls.append(a[1]) or real(*a))
+    got = s.render(ready, fr.index, **STATUS).copy()
+    assert calls == []                                         # drawn as made
+    np.testing.assert_array_equal(got, want)
+    # a knob turn: made again, as a window that never made anything ahead draws it
+    s.flow.engine = own.flow.engine = engine_with(s.flow.engine, {"black_trim": 0.94})
+    again = s.render(ready, fr.index, **STATUS)
+    assert calls == [fr.index]
+    np.testing.assert_array_equal(again, own.render(fr.rgb, fr.index, **STATUS))
+
+
+def test_views_made_ahead_are_never_written_over(rgb_frames):
+    # a frame made ahead lends its arrays to the flow; a run of the chain after a change
+    # (bypass here) must not write into them, or turning the change back would show them
+    info, frames = rgb_frames
+    fr = frames[2]
+    s = _session(info)
+    ready = s.prepare(fr.index, fr)
+    first = s.render(ready, fr.index, **STATUS).copy()
+    s.flow.bypass = True
+    bypassed = s.render(ready, fr.index, **STATUS).copy()
+    assert not np.array_equal(bypassed, first)
+    s.flow.bypass = False
+    np.testing.assert_array_equal(s.render(ready, fr.index, **STATUS), first)
