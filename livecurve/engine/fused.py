@@ -78,8 +78,10 @@ from livecurve.signal.levels import TIE_EPS, _converter_ranges
 
 #: Lines handled together.  The line filters run across the band's lines as vector lanes
 #: (a line's recursion is serial along the line, but the band's lines are independent), so
-#: the band is a multiple of the SIMD width; 16 float64 lanes measured 3–4× faster than
-#: four interleaved lines on this project's machine (benchmarks/README.md).
+#: the band is a multiple of the SIMD width.  Measured here with a throwaway script on a
+#: 3-state filter over three 1080p planes: 16 lanes 3.4 ms, 8 lanes 12.4 ms (LLVM unrolls
+#: the short lane loop instead of vectorising it); the filter's share of the kernel is in
+#: benchmarks/README.md, "Real time at HD".
 BAND = 16
 #: Samples of a line taken at a time through the lanes (they stay in the first-level cache).
 _XB = 64
