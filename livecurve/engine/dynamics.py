@@ -261,7 +261,7 @@ class StageDynamics:
 
 
 def stage_dynamics(stage, opamp=None, *, net=None, vin_v: float = 0.0,
-                   t_kelvin: float | None = None):
+                   t_kelvin: float | None = None, params: dict | None = None):
     """The line-rate dynamics of one chain stage, or None when it has none.
 
     A ``[stage.dynamics]`` table (hand figures) wins; otherwise a stage whose schematic has
@@ -277,6 +277,14 @@ def stage_dynamics(stage, opamp=None, *, net=None, vin_v: float = 0.0,
         The stage's netlist as one channel builds it (per-channel overrides and knob
         values applied, e.g. ``ChainModel.netlist(channel, stage)``); default: the stage
         as written.
+    vin_v : float
+        Stage input volts of the operating point a schematic is linearised at.
+    t_kelvin : float, optional
+        Junction temperature of that operating point (default TNOM, 27 °C).
+    params : dict, optional
+        The stage's parameters as one channel has them (overrides and knob values
+        applied, e.g. ``{**stage.params, **ChainModel.values(channel, stage)}``), for the
+        noise gain of hand figures; default: the stage as written.
     """
     from livecurve.circuit.stages import KINDS, OpampSpec, build_stage
     from livecurve.circuit.userdeck import build_user_stage
@@ -285,7 +293,8 @@ def stage_dynamics(stage, opamp=None, *, net=None, vin_v: float = 0.0,
         ng = d.get("noise_gain")
         if ng is None:
             kind = KINDS.get(stage.kind)
-            ng = kind.noise_gain(stage.params) if kind and kind.noise_gain else 1.0
+            ng = kind.noise_gain(stage.params if params is None else params) \
+                if kind and kind.noise_gain else 1.0
         try:
             return StageDynamics(gbw_hz=d.get("gbw"), noise_gain=ng,
                                  slew_v_per_us=d.get("slew"), f0_hz=d.get("f_ring"),

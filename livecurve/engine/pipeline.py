@@ -37,6 +37,7 @@ class Run:
     table: _tables.Table | None = None
     dynamics: object | None = None  # StageDynamics of the last stage, if any
     line_filter: object | None = None
+    dyn_key: tuple | None = None  # the knobs and temperature *dynamics* was derived at
     blank_in_v: float = 0.0
     blank_out_v: float = 0.0
     lo_v: float = -0.5
@@ -55,12 +56,12 @@ class EngineState:
     temps_k: dict = field(default_factory=dict)
 
 
-def stage_dynamics(stage: StageSpec, opamp=None, net=None):
+def stage_dynamics(stage: StageSpec, opamp=None, net=None, *, t_kelvin=None, params=None):
     """The stage's line-rate dynamics (hand figures or from its schematic), or None.
 
     See :func:`livecurve.engine.dynamics.stage_dynamics`."""
     from livecurve.engine.dynamics import stage_dynamics as _dynamics
-    return _dynamics(stage, opamp, net=net)
+    return _dynamics(stage, opamp, net=net, t_kelvin=t_kelvin, params=params)
 
 
 class FrameEngine:
@@ -98,6 +99,9 @@ class FrameEngine:
                                  t_kelvin=spec.ambient_k if t_kelvin is None else t_kelvin)
         if live:
             self.state.live.update(live)
+        # a modulated knob's line filter stays at the knob's starting value (one filter a
+        # frame; the control moves the 2-D table, not the filter)
+        self._filter_live = {n: self.state.live[n] for n in self.modulated}
         self.runs: list[list[Run]] = [self._plan(ch) for ch in range(3)]
         self.rebuild()
 
@@ -135,11 +139,35 @@ class FrameEngine:
             cur.knob = cur.knob or knob
             cur_turnable = cur_turnable or turnable
             # the channel's own netlist (its overrides, the knobs' starting values)
-            dyn = stage_dynamics(st, self.spec.opamp, self.model.netlist(ch, st, self.state.live))
+            dyn = self._stage_dynamics(ch, st)
             if dyn is not None:
                 cur.dynamics = dyn
+                cur.dyn_key = self._dyn_key(st)
                 cur = None
         return runs
+
+    def _dyn_key(self, stage: StageSpec) -> tuple:
+        """What a stage's dynamics depend on: its knobs' values and its temperature."""
+        live = self._dyn_live()
+        knobs = tuple(sorted((n, live[n]) for n, ls in self.spec.live.items()
+                             if ls.stage == stage.id and n in live))
+        temps = self.state.temps_k or {}
+        return knobs, float(temps.get(stage.id, self.state.t_kelvin))
+
+    def _dyn_live(self) -> dict:
+        """Knob values for line filters: the present ones, modulated knobs at their start."""
+        return {**self.state.live, **self._filter_live}
+
+    def _stage_dynamics(self, ch: int, stage: StageSpec):
+        """The stage's dynamics on channel *ch* at the present knobs and temperature: the
+        schematic linearised at its junction temperature with the knobs' values in it, or
+        hand figures whose noise gain follows the knobs (a gain knob moves the closed-loop
+        bandwidth, GBW / noise gain)."""
+        live = self._dyn_live()
+        params = {**stage.params, **{k: v for k, v in self.model.values(ch, stage, live).items()
+                                     if k in stage.params}}
+        return stage_dynamics(stage, self.spec.opamp, self.model.netlist(ch, stage, live),
+                              t_kelvin=self._dyn_key(stage)[1], params=params)
 
     def rebuild(self, *, channels=(0, 1, 2), first_run: dict | None = None) -> None:
         """(Re)build every run's table and filter at the present knobs and temperature.
@@ -170,8 +198,15 @@ class FrameEngine:
                     out_lo, out_hi = float(ys.min()), float(ys.max())
                 run.blank_out_v = self._blank_out(run, blank)
                 if run.dynamics is not None:
-                    # the filter depends on the dynamics and the pixel clock only, not on
-                    # knobs or temperature: keep it across rebuilds
+                    # the dynamics follow the last stage's knobs and junction temperature
+                    # (a modulated knob's filter stays where the knob was last set); the
+                    # filter is made again only when they changed
+                    dkey = self._dyn_key(run.stages[-1])
+                    if dkey != run.dyn_key:
+                        dyn = self._stage_dynamics(ch, run.stages[-1])
+                        if dyn is not None:
+                            run.dynamics = dyn
+                        run.dyn_key = dkey
                     key = (run.dynamics, self.pixel_period_s)
                     if run.line_filter is None or getattr(run, "_lf_key", None) != key:
                         run.line_filter = discretise(run.dynamics, self.pixel_period_s)
