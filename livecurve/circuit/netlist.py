@@ -105,6 +105,13 @@ class Compiled:
     node_index: dict
     out_index: int
     element_rows: dict = field(default_factory=dict)  # OA / L element name -> its row
+    #: Row k → the name of the element it came from (a diode's RS resistor row, an
+    #: op-amp's bias-current rows, … belong to that diode or op-amp).
+    row_element: list = field(default_factory=list)
+    #: Element name → its kind letter (``"R"``, ``"D"``, ``"OA"``, ``"L"``, …).
+    element_kind: dict = field(default_factory=dict)
+    #: The stage's name, for messages.
+    name: str = "netlist"
 
 
 class Netlist:
@@ -227,8 +234,10 @@ class Netlist:
             raise ConfigError("a stage netlist needs nodes 'in' and 'out'", key=self.name)
         rows: list[tuple[int, tuple[int, int, int, int], list[float], bool]] = []
         erows: dict[str, int] = {}
+        starts: list[int] = []  # first row of each element
         vt = thermal_voltage(t_kelvin)
         for el in self.elements:
+            starts.append(len(rows))
             if el.kind == "R":
                 rows.append((_s.K_R, (node(el.nodes[0]), node(el.nodes[1]), -1, -1),
                              [1.0 / el.value], False))
@@ -299,6 +308,8 @@ class Netlist:
             elif el.kind == "E":
                 p, n_, o, r = el.nodes
                 rows.append((_s.K_E, (node(p), node(n_), node(o), node(r)), [el.value], True))
+        owner = [el.name for el, a, b in zip(self.elements, starts, starts[1:] + [len(rows)],
+                                             strict=True) for _ in range(a, b)]
         n_nodes = len(idx)
         kinds = np.array([r[0] for r in rows], dtype=np.int64)
         nodes = np.array([r[1] for r in rows], dtype=np.int64).reshape(-1, 4)
@@ -311,7 +322,8 @@ class Netlist:
                 branch[k] = n_nodes + nb_
                 nb_ += 1
         return Compiled(kinds, nodes, params, branch, n_nodes, n_nodes + nb_, dict(idx),
-                        idx["out"], erows)
+                        idx["out"], erows, owner, {el.name: el.kind for el in self.elements},
+                        self.name)
 
 
 def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,
@@ -340,6 +352,13 @@ def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,
     Returns
     -------
     ndarray, shape (N,) float64 volts (or (N, n_unknowns) for ``node="*"``).
+
+    Raises
+    ------
+    SolverError
+        With *strict*, naming the stage, the first input that failed and — from
+        :func:`livecurve.circuit.nonconvergence.diagnose`, run only then — the node and
+        the elements at fault.
     """
     comp = net.compile(t_kelvin) if isinstance(net, Netlist) else net
     vin = np.ascontiguousarray(np.atleast_1d(np.asarray(vin_v, dtype=np.float64)))
@@ -352,10 +371,13 @@ def solve_sweep(net: Netlist | Compiled, vin_v, *, t_kelvin: float = 300.15,
     if solution is not None and ok.size and ok[0]:
         solution.append(xs[0].copy())
     if strict and not ok.all():
-        bad = vin[~ok]
-        name = net.name if isinstance(net, Netlist) else "netlist"
-        raise SolverError(f"DC solver did not converge for stage '{name}' at input "
-                          f"{bad[0]:.6g} V ({(~ok).sum()} of {len(vin)} points)")
+        i = int(np.argmin(ok))
+        msg = (f"DC solver did not converge for stage '{comp.name}' at input {vin[i]:.6g} V "
+               f"({(~ok).sum()} of {len(vin)} points)")
+        from livecurve.circuit.nonconvergence import diagnosis_or_nothing
+        where = diagnosis_or_nothing(comp, vin, ok, xs, start if warm else None)
+        raise SolverError(f"{msg}: {where}" if where else msg)
     if node == "*":
         return xs
     return xs[:, comp.node_index[node]]
+
