@@ -200,26 +200,26 @@ class FrameFlow:
         return not self.engine.exact and all(cs.rate != "pixel" for cs, _ in self.controls)
 
     def process_planes(self, y: np.ndarray, cb: np.ndarray, cr: np.ndarray, frame_index: int,
-                       *, in_legal: bool = True, out=None, line_step: int = 1):
-        """Run one frame of 8-bit Y′CbCr planes through the chain in one pass per line
-        (:class:`livecurve.engine.fused.FusedChain`); returns legal-range (y, cb, cr) planes,
-        *out* when given.  The clip's matrix must be :attr:`standard`.  *line_step* > 1
-        runs only every *line_step*-th line (for a view that reads no others; see
-        :meth:`FusedChain.process`)."""
+                       *, in_legal: bool = True, in_bits: int = 8, out=None,
+                       line_step: int = 1):
+        """Run one frame of Y′CbCr planes (8-bit, or *in_bits* codes in uint16 planes)
+        through the chain in one pass per line (:class:`livecurve.engine.fused.FusedChain`);
+        returns 8-bit legal-range (y, cb, cr) planes, *out* when given.  The clip's matrix
+        must be :attr:`standard`.  *line_step* > 1 runs only every *line_step*-th line (for
+        a view that reads no others; see :meth:`FusedChain.process`).  Bypassed, the
+        source's codes come out as they are, re-coded to 8-bit legal range if need be."""
         from livecurve.engine.fused import FusedChain
         fc = getattr(self, "_fused", None)
-        if fc is None or fc.in_legal != bool(in_legal):
+        if fc is None or fc.in_legal != bool(in_legal) or fc.in_bits != int(in_bits):
             fc = self._fused = FusedChain(self.engine, space=self.spec.space,
                                           standard=self.standard,
                                           converter_bits=self.spec.converter_bits,
                                           converter_legal=self.spec.converter_legal,
-                                          in_legal=in_legal)
+                                          in_legal=in_legal, in_bits=in_bits)
         if out is None:
-            out = (np.empty_like(y), np.empty_like(cb), np.empty_like(cr))
+            out = tuple(np.empty(a.shape, np.uint8) for a in (y, cb, cr))
         if self.bypass:
-            for a, b in zip((y, cb, cr), out, strict=True):
-                np.copyto(b, a)
-            return out
+            return fc.passthrough(y, cb, cr, out=out)
         if self.follower is not None:
             self.follower.maybe_update(self.engine, frame_index / self.fps)
         ctl = self.control_values(frame_index)
@@ -228,22 +228,24 @@ class FrameFlow:
         return fc.process(y, cb, cr, controls=ctl, out=out, line_step=line_step)
 
     def view_planes(self, planes_in, planes_out, *, step: int = 2, in_legal: bool = True,
-                    source_rgb: bool = True):
+                    in_bits: int = 8, source_rgb: bool = True):
         """After :meth:`process_planes`: point :attr:`planes_in`, :attr:`planes_out` and
         :attr:`rgb_out` at every *step*-th line and sample of the frame (volts, and R′G′B′
         codes through the output converter's matrix), for the window's picture and
         monitors at a fixed cost.  Returns the source's R′G′B′ at the same size (or
         :attr:`rgb_out` when *source_rgb* is False)."""
         return self.show_views(self.make_views(planes_in, planes_out, step=step,
-                                               in_legal=in_legal, source_rgb=source_rgb))
+                                               in_legal=in_legal, in_bits=in_bits,
+                                               source_rgb=source_rgb))
 
     def make_views(self, planes_in, planes_out, *, step: int = 2, in_legal: bool = True,
-                   source_rgb: bool = True) -> tuple:
+                   in_bits: int = 8, source_rgb: bool = True) -> tuple:
         """The views :meth:`view_planes` makes, as ``(planes_in, planes_out, rgb_out,
         source R′G′B′ or None)``, without touching the flow (any thread may make them)."""
         from livecurve.engine.fused import sampled_volts
         sp, std = self.spec.space, self.standard
-        v_in = sampled_volts(*planes_in, space=sp, standard=std, step=step, in_legal=in_legal)
+        v_in = sampled_volts(*planes_in, space=sp, standard=std, step=step, in_legal=in_legal,
+                             in_bits=in_bits)
         v_out = sampled_volts(*planes_out, space=sp, standard=std, step=step)
         # the output planes hold the converter's codes already: a 16-bit converter only
         # carries them on to the 8-bit R′G′B′ word (no second visible rounding)

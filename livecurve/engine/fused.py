@@ -1,4 +1,7 @@
-"""One pass per line: 8-bit Y′CbCr planes through a whole chain and its output converter.
+"""One pass per line: Y′CbCr planes through a whole chain and its output converter.
+
+Input planes are 8-bit (uint8) or 10-/12-bit (uint16, codes as stored); the output is
+8-bit Y′CbCr, legal range, as the encoder takes it.
 
 The reference path turns a decoded picture into R′G′B′ codes, then into planar volts
 (:func:`livecurve.signal.levels.codes_to_volts`), runs each channel's tables and line
@@ -37,7 +40,7 @@ between two luma lines.  Upsampling is linear between neighbouring chroma sample
 (weights ½·½ across, ¾·¼ down), and the output is brought back with the matching
 [¼ ½ ¼] filter across and the mean of the two lines down; edges repeat the last sample.
 A ``ypbpr`` chain whose chroma channel has no stages never resamples it: a plane without
-stages goes through the converter as a 256-entry table of codes.
+stages goes through the converter as a table of codes (one entry per input code).
 
 *line_step* runs every n-th line only, for a view that reads no others (the preview at
 1080p); each line is computed as in a full pass.
@@ -108,7 +111,7 @@ def fusable(engine, controls: dict | None = None) -> bool:
 
 
 class FusedChain:
-    """A :class:`~livecurve.engine.pipeline.FrameEngine` compiled for 8-bit Y′CbCr planes.
+    """A :class:`~livecurve.engine.pipeline.FrameEngine` compiled for Y′CbCr planes.
 
     Parameters
     ----------
@@ -125,15 +128,21 @@ class FusedChain:
     in_legal : bool
         The source's code range (limited ``tv`` or full ``pc``); the output is always
         legal range, as the encoder writes it.
+    in_bits : {8, 10, 12}
+        The source's bits per code: uint8 planes for 8, uint16 planes (codes as stored,
+        0…2^bits − 1) for 10 and 12.  The output is always 8-bit.
     """
 
     def __init__(self, engine, *, space: str, standard: str, converter_bits: int = 10,
-                 converter_legal: bool = True, in_legal: bool = True):
+                 converter_legal: bool = True, in_legal: bool = True, in_bits: int = 8):
+        if in_bits not in (8, 10, 12):
+            raise ValueError(f"in_bits must be 8, 10 or 12, not {in_bits!r}")
         self.engine = engine
         self.in_legal = bool(in_legal)
+        self.in_bits = int(in_bits)
         self.space = space
         self.standard = standard
-        cin = code_range(8, legal=bool(in_legal))
+        cin = code_range(self.in_bits, legal=bool(in_legal))
         self._in = np.array([cin.y_lo, cin.y_span, cin.c_mid, cin.c_span], dtype=np.float64)
         cout = code_range(8, legal=True)
         self._out = np.array([cout.y_lo, cout.y_span, cout.c_mid, cout.c_span,
@@ -200,9 +209,9 @@ class FusedChain:
 
     def _code_luts(self) -> np.ndarray:
         """Per channel, output code for each input code of a plane without stages (ypbpr)."""
-        codes = np.arange(256, dtype=np.float64)
+        codes = np.arange(1 << self.in_bits, dtype=np.float64)
         y_lo, y_span, c_mid, c_span = self._in
-        luts = np.zeros((3, 256), np.uint8)
+        luts = np.zeros((3, codes.size), np.uint8)
         gain, bias, lo, hi, igain, ibias = self._conv
         oy_lo, oy_span, oc_mid, oc_span, vlo, vhi = self._out
         for ch in range(3):
@@ -242,12 +251,12 @@ class FusedChain:
     # ---- per frame -----------------------------------------------------------------------
     def process(self, y: np.ndarray, cb: np.ndarray, cr: np.ndarray, *,
                 controls: dict | None = None, out=None, line_step: int = 1):
-        """Run one frame of 8-bit Y′CbCr planes through the chain and the converter.
+        """Run one frame of Y′CbCr planes through the chain and the converter.
 
         Parameters
         ----------
-        y : ndarray (H, W) uint8
-        cb, cr : ndarray uint8, shape (H, W), (H, ⌈W/2⌉) or (⌈H/2⌉, ⌈W/2⌉)
+        y : ndarray (H, W) uint8 (uint16 for a 10- or 12-bit source)
+        cb, cr : ndarray of y's type, shape (H, W), (H, ⌈W/2⌉) or (⌈H/2⌉, ⌈W/2⌉)
             4:4:4, 4:2:2 or 4:2:0 chroma.
         controls : dict, optional
             Modulated knob → a scalar or one value per line (as
@@ -272,8 +281,13 @@ class FusedChain:
         sh, sv = _subsampling(y.shape, cb.shape)
         if cr.shape != cb.shape:
             raise MediaError(f"Cb plane {cb.shape} and Cr plane {cr.shape} differ")
+        want = np.uint8 if self.in_bits == 8 else np.uint16
+        for a in (y, cb, cr):
+            if a.dtype != want:
+                raise MediaError(f"{self.in_bits}-bit planes must be {np.dtype(want).name}, "
+                                 f"not {a.dtype}")
         if out is None:
-            out = (np.empty_like(y), np.empty_like(cb), np.empty_like(cr))
+            out = tuple(np.empty(a.shape, np.uint8) for a in (y, cb, cr))
         self._pack()
         cpos = self._cpos(controls or {}, h)
         oy, ocb, ocr = out
@@ -298,6 +312,32 @@ class FusedChain:
             if stats[0]:
                 raise SolverError(f"the chain produced NaN in {int(stats[0])} pixels: values "
                                   "no converter can encode")
+        return out
+
+
+    def passthrough(self, y: np.ndarray, cb: np.ndarray, cr: np.ndarray, *, out=None):
+        """The source's planes as they are (the chain bypassed), as 8-bit legal-range
+        codes: a copy for 8-bit legal sources, else each code re-coded to the 8-bit code
+        of the same level (rounded half up)."""
+        if out is None:
+            out = tuple(np.empty(a.shape, np.uint8) for a in (y, cb, cr))
+        if self.in_bits == 8 and self.in_legal:
+            for a, b in zip((y, cb, cr), out, strict=True):
+                np.copyto(b, a)
+            return out
+        luts = getattr(self, "_recode", None)
+        if luts is None:
+            codes = np.arange(1 << self.in_bits, dtype=np.float64)
+            y_lo, y_span, c_mid, c_span = self._in
+            oy_lo, oy_span, oc_mid, oc_span, vlo, vhi = self._out
+            ly = oy_lo + (codes - y_lo) / y_span * oy_span
+            lc = oc_mid + (codes - c_mid) / c_span * oc_span
+            luts = self._recode = tuple(
+                np.floor(np.clip(v, vlo, vhi) + 0.5 + TIE_EPS).astype(np.uint8)
+                for v in (ly, lc))
+        np.take(luts[0], y, out=out[0])
+        np.take(luts[1], cb, out=out[1])
+        np.take(luts[1], cr, out=out[2])
         return out
 
 
@@ -810,8 +850,10 @@ def _convert(y, v, nv, i0, nr, sh, sv, rgb, act, conv, m_out, cout, oy, ocb, ocr
 
 
 def sampled_volts(y: np.ndarray, cb: np.ndarray, cr: np.ndarray, *, space: str,
-                  standard: str, step: int = 4, in_legal: bool = True) -> np.ndarray:
-    """Centred channel volts of every *step*-th line and sample of 8-bit Y′CbCr planes.
+                  standard: str, step: int = 4, in_legal: bool = True,
+                  in_bits: int = 8) -> np.ndarray:
+    """Centred channel volts of every *step*-th line and sample of Y′CbCr planes (8-bit,
+    or *in_bits* codes in uint16 planes).
 
     For monitors and the flash estimate, which read pictures at a fixed, reduced cost:
     chroma is taken from the sample sited nearest (no interpolation).  Returns float32
@@ -819,7 +861,7 @@ def sampled_volts(y: np.ndarray, cb: np.ndarray, cr: np.ndarray, *, space: str,
     """
     h, w = y.shape
     sh, sv = _subsampling(y.shape, cb.shape)
-    cin = code_range(8, legal=bool(in_legal))
+    cin = code_range(int(in_bits), legal=bool(in_legal))
     k = np.array([cin.y_lo, cin.y_span, cin.c_mid, cin.c_span], np.float32)
     m = ypbpr_to_rgb_matrix(standard).astype(np.float32)
     off = np.array(centre_offsets_v(space), np.float32)

@@ -9,7 +9,10 @@ the stream holds, in the stream's own range (limited or full).
 
 Layouts (ffmpeg pixel formats): ``yuv420p``/``yuvj420p`` (chroma ⌈W/2⌉ × ⌈H/2⌉),
 ``yuv422p``/``yuvj422p`` (⌈W/2⌉ × H) and ``yuv444p``/``yuvj444p`` (W × H); the ``j``
-formats are full range.  Odd sizes round the chroma up, as ffmpeg stores them.
+formats are full range.  The same three at 10 and 12 bits (``yuv422p10le`` and the like,
+as 10-bit cameras, capture cards and mezzanine codecs store them) decode to uint16
+planes holding the codes as stored (0…1023 or 0…4095).  Odd sizes round the chroma up,
+as ffmpeg stores them.
 """
 
 from __future__ import annotations
@@ -25,7 +28,24 @@ from livecurve.media.source import ClipSource
 
 #: ffmpeg pixel format → (horizontal, vertical) chroma shift.
 LAYOUTS = {"yuv420p": (1, 1), "yuvj420p": (1, 1), "yuv422p": (1, 0), "yuvj422p": (1, 0),
-           "yuv444p": (0, 0), "yuvj444p": (0, 0)}
+           "yuv444p": (0, 0), "yuvj444p": (0, 0),
+           "yuv420p10le": (1, 1), "yuv422p10le": (1, 0), "yuv444p10le": (0, 0),
+           "yuv420p12le": (1, 1), "yuv422p12le": (1, 0), "yuv444p12le": (0, 0)}
+
+
+def layout_bits(layout: str) -> int:
+    """Bits per code of a planar layout (8, 10 or 12)."""
+    for bits in (10, 12):
+        if layout.endswith(f"p{bits}le"):
+            return bits
+    return 8
+
+
+def writer_layout(layout: str) -> str:
+    """The 8-bit legal-range layout with *layout*'s chroma subsampling: what the one-pass
+    kernel writes (always 8-bit legal range, whatever the source's depth and range)."""
+    sh, sv = LAYOUTS[layout]
+    return {(1, 1): "yuv420p", (1, 0): "yuv422p", (0, 0): "yuv444p"}[(sh, sv)]
 
 
 @dataclasses.dataclass(frozen=True, slots=True)
@@ -49,12 +69,14 @@ class PlaneFrame:
 
 
 def plane_layout(info: MediaInfo) -> str | None:
-    """The planar layout a clip decodes to without conversion, or None (R′G′B′ or deeper
-    than 8 bits: use the R′G′B′ path)."""
-    if info.kind != "clip" or info.source_bits > 8:
+    """The planar layout a clip decodes to without conversion, or None (R′G′B′, or a
+    layout not in :data:`LAYOUTS`: use the R′G′B′ path)."""
+    if info.kind != "clip":
         return None
     pix = info.pix_fmt or ""
-    return pix if pix in LAYOUTS else None
+    if pix not in LAYOUTS or layout_bits(pix) != max(8, info.source_bits):
+        return None
+    return pix
 
 
 def is_full_range(info: MediaInfo) -> bool:
@@ -79,8 +101,9 @@ class PlaneClipSource(ClipSource):
         layout = plane_layout(info)
         if layout is None:
             raise MediaError(f"{info.path}: {info.pix_fmt} at {info.source_bits} bits is not "
-                             f"one of the planar 8-bit layouts {', '.join(LAYOUTS)}")
+                             f"one of the planar layouts {', '.join(LAYOUTS)}")
         self.layout = layout
+        self.bits = layout_bits(layout)
         self.full_range = is_full_range(info)
         h, w = info.height, info.width
         self._cshape = chroma_shape(layout, w, h)
@@ -88,7 +111,9 @@ class PlaneClipSource(ClipSource):
         self._csize = self._cshape[0] * self._cshape[1]
         super().__init__(info, start_s=start_s, duration_s=duration_s, loop=loop,
                          exact_colour=False)
-        self._nbytes = self._ysize + 2 * self._csize
+        # after the base class, which sets the R′G′B′ path's sample type
+        self.dtype = np.dtype(np.uint8) if self.bits == 8 else np.dtype("<u2")
+        self._nbytes = (self._ysize + 2 * self._csize) * self.dtype.itemsize
 
     def _command(self, index: int) -> list[str]:
         info = self.info
@@ -102,16 +127,16 @@ class PlaneClipSource(ClipSource):
         return cmd + ["-f", "rawvideo", "-pix_fmt", self.layout, "pipe:1"]
 
     def _read(self):
-        buf = np.empty(self._ysize + 2 * self._csize, np.uint8)
-        view = memoryview(buf)
+        buf = np.empty(self._ysize + 2 * self._csize, self.dtype)
+        view = memoryview(buf).cast("B")
         got = 0
-        stream = self._proc.stdout
-        while got < buf.size:
+        stream = self._stdout()
+        while got < self._nbytes:
             n = stream.readinto(view[got:])
             if not n:
                 break
             got += n
-        return buf if got == buf.size else None
+        return buf if got == self._nbytes else None
 
     def __next__(self) -> PlaneFrame:
         fr = super().__next__()

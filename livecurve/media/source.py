@@ -268,7 +268,18 @@ class ClipSource(FrameSource):
                 f":in_range={'pc' if full else 'tv'}")
 
     def _open_at(self, index: int) -> None:
+        # the decoder starts at the first read (or :meth:`start`): a source opened only
+        # for its facts, or replaced by another decoder, costs no ffmpeg process
         self._close()
+        self._pending = index
+
+    def start(self) -> None:
+        """Start the decoder now rather than at the first frame (so it works while the
+        caller gets ready).  Raises MediaError when ffmpeg cannot be started."""
+        index = getattr(self, "_pending", None)
+        if index is None or self._closed:
+            return
+        self._pending = None
         try:
             self._proc = subprocess.Popen(self._command(index), stdin=subprocess.DEVNULL,
                                           stdout=subprocess.PIPE, stderr=subprocess.PIPE,
@@ -277,11 +288,17 @@ class ClipSource(FrameSource):
             raise MediaError(f"{self.info.path}: cannot start ffmpeg: {exc}") from exc
         self._err = _ffmpeg.StderrTail(self._proc.stderr)
 
+    def _stdout(self):
+        """The running decoder's output pipe (started here if it has not been)."""
+        if self._proc is None:
+            self.start()
+        return self._proc.stdout
+
     def _read(self) -> np.ndarray | None:
         out = np.empty(self._shape, self.dtype)
         view = memoryview(out).cast("B")
         got = 0
-        stream = self._proc.stdout
+        stream = self._stdout()
         while got < self._nbytes:
             n = stream.readinto(view[got:])
             if not n:
@@ -315,7 +332,7 @@ class ClipSource(FrameSource):
         _ffmpeg.stop_process(self._proc)
         if self._err is not None:
             self._err.join(1.0)
-        self._proc, self._err = None, None
+        self._proc, self._err, self._pending = None, None, None
 
 
 class ImageSource(FrameSource):

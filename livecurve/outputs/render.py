@@ -6,11 +6,12 @@ lossless and 16-bit, so a frame can be compared exactly.  Every output is writte
 temporary file and renamed only when complete (``media.atomic``); an error or Ctrl-C
 leaves no partial output.
 
-An h264 render of an 8-bit Y′CbCr clip whose matrix is the chain's stays in Y′CbCr: the
-clip is decoded as its planes, each frame goes through the chain in one pass per line
-(:mod:`livecurve.engine.fused`) and the planes are encoded as they are, with decoding,
-processing and encoding overlapped (:func:`run_overlapped`).  Everything else (``--exact``,
-per-pixel controls, ffv1, stills, side by side, deeper sources) takes the R′G′B′ path.
+An h264 render of a planar Y′CbCr clip (8, 10 or 12 bits; limited or full range) whose
+matrix is the chain's stays in Y′CbCr: the clip is decoded as its planes, each frame goes
+through the chain in one pass per line (:mod:`livecurve.engine.fused`) and the 8-bit
+legal-range planes it makes are encoded as they are, with decoding, processing and
+encoding overlapped (:func:`run_overlapped`).  Everything else (``--exact``, per-pixel
+controls, ffv1, stills, side by side, R′G′B′ sources) takes the R′G′B′ path.
 """
 
 from __future__ import annotations
@@ -27,6 +28,7 @@ import numpy as np
 from livecurve.config.chainfile import ChainSpec
 from livecurve.engine.frameflow import FrameFlow, bind_controls
 from livecurve.errors import OutputError
+from livecurve.media.planes import writer_layout
 from livecurve.outputs.progress import Progress
 
 STILL_EXT = (".png", ".tif", ".tiff")
@@ -67,9 +69,10 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
         Let junction temperatures follow the chain's ``[thermal]`` warm-up and self-heating
         over the clip's time (tables rebuilt as they move).
     planar : bool
-        Let an h264 render of an 8-bit Y′CbCr clip stay in Y′CbCr (decode planes, one pass
-        per line, encode planes, overlapped; see :func:`run_overlapped`).  False forces
-        the R′G′B′ reference path.
+        Let an h264 render of a planar Y′CbCr clip (8, 10 or 12 bits, limited or full
+        range) stay in Y′CbCr (decode planes, one pass per line, encode 8-bit legal-range
+        planes, overlapped; see :func:`run_overlapped`).  False forces the R′G′B′
+        reference path.
     """
     from livecurve.media.atomic import check_not_source, check_target, write_still
     from livecurve.media.source import open_source
@@ -127,14 +130,16 @@ def render(spec: ChainSpec, source, output, *, start_s: float = 0.0,
             with ClipWriter(out, width=w, height=info.height, fps=info.fps,
                             codec=codec or _codec_for(ext), audio_from=audio,
                             audio_start_s=start_s, audio_duration_s=duration_s, force=force,
-                            matrix=flow.standard, layout=planar) as writer:
+                            matrix=flow.standard,
+                            layout=None if planar is None else writer_layout(planar)) as writer:
                 if planar is not None:
                     from livecurve.media.planes import PlaneClipSource, is_full_range
                     src.close()   # the planes come from a decoder of their own
                     psrc = PlaneClipSource(info, start_s=start_s, duration_s=duration_s)
                     with psrc:
                         done = run_overlapped(psrc, flow, writer, flash=flash, progress=bar,
-                                              in_legal=not is_full_range(info))
+                                              in_legal=not is_full_range(info),
+                                              in_bits=psrc.bits)
                 for fr in (src if planar is None else ()):
                     rgb = flow.process(fr.rgb, fr.index)
                     if flash is not None:
@@ -163,8 +168,9 @@ _END = object()
 
 def _planar_layout(info, flow: FrameFlow) -> str | None:
     """The clip's planar layout when it can go through the one-pass kernel untouched by any
-    R′G′B′ conversion (8-bit planar Y′CbCr, the chain's matrix is the clip's, tables not the
-    solver, no per-pixel control), else None."""
+    R′G′B′ conversion (planar Y′CbCr at 8, 10 or 12 bits, the chain's matrix is the
+    clip's, tables not the solver, no per-pixel control), else None.  The kernel writes
+    :func:`~livecurve.media.planes.writer_layout` of it."""
     from livecurve.media.planes import plane_layout
     from livecurve.media.source import default_matrix
     layout = plane_layout(info)
@@ -215,7 +221,7 @@ def _get(q: queue.Queue, stop: threading.Event, others=()):
 
 
 def run_overlapped(src, flow: FrameFlow, writer, *, flash=None, progress=None,
-                   in_legal: bool = True, queue_frames: int = QUEUE_FRAMES,
+                   in_legal: bool = True, in_bits: int = 8, queue_frames: int = QUEUE_FRAMES,
                    trace: list | None = None) -> int:
     """Decode, process and encode at once: a decoder thread, the kernel here, an encoder
     thread, with at most *queue_frames* frames waiting on each side (so at most
@@ -262,8 +268,9 @@ def run_overlapped(src, flow: FrameFlow, writer, *, flash=None, progress=None,
             try:
                 planes = free.get_nowait()
             except queue.Empty:
-                planes = (np.empty_like(fr.y), np.empty_like(fr.cb), np.empty_like(fr.cr))
-            flow.process_planes(fr.y, fr.cb, fr.cr, fr.index, in_legal=in_legal, out=planes)
+                planes = tuple(np.empty(a.shape, np.uint8) for a in (fr.y, fr.cb, fr.cr))
+            flow.process_planes(fr.y, fr.cb, fr.cr, fr.index, in_legal=in_legal,
+                                in_bits=in_bits, out=planes)
             if flash is not None:
                 flash.push(flash_volts(flow, planes))
             if not _put(q_out, (fr.index, planes), stop, enc):

@@ -422,6 +422,7 @@ class PreviewSession:
         self.note = ""
         self.canvas = None
         self.in_legal = True
+        self.in_bits = 8      # a planar clip's bits per code (10 or 12: uint16 planes)
         self._chain_lock = threading.Lock()   # one chain run at a time (two threads run it)
         self._new_frames = -1                  # new frames drawn, less one
         self.shown_controls = None             # control values of the frame drawn last
@@ -617,7 +618,8 @@ class PreviewSession:
             fr = fr.frame if isinstance(fr, ReadyFrame) else fr
             out, ctl_used = self._run_chain(fr, index)
             src_rgb = flow.view_planes((fr.y, fr.cb, fr.cr), out, step=step,
-                                       in_legal=self.in_legal, source_rgb=self.view.split)
+                                       in_legal=self.in_legal, in_bits=self.in_bits,
+                                       source_rgb=self.view.split)
         self._set_scope_step(flow.planes_out)
         if new_frame and self._flash is not None and not flow.bypass:
             fv = (numbers or {}).get("flash")
@@ -653,7 +655,8 @@ class PreviewSession:
         its engine (a knob turn swaps it), bypass, the input range, the split view, and the
         control index."""
         f = self.flow
-        return (id(f), id(f.engine), f.bypass, self.in_legal, self.view.split, index)
+        return (id(f), id(f.engine), f.bypass, (self.in_legal, self.in_bits), self.view.split,
+                index)
 
     def _run_chain(self, fr, index: int):
         """The chain on every view_step-th line of a planar frame: (output planes, the
@@ -661,10 +664,10 @@ class PreviewSession:
         other lines, and each line goes through the chain as in a full pass (it is
         filtered along itself)."""
         flow = self.flow
-        out = (np.empty_like(fr.y), np.empty_like(fr.cb), np.empty_like(fr.cr))
+        out = tuple(np.empty(a.shape, np.uint8) for a in (fr.y, fr.cb, fr.cr))
         with self._chain_lock:
-            flow.process_planes(fr.y, fr.cb, fr.cr, index, in_legal=self.in_legal, out=out,
-                                line_step=view_step(self.info))
+            flow.process_planes(fr.y, fr.cb, fr.cr, index, in_legal=self.in_legal,
+                                in_bits=self.in_bits, out=out, line_step=view_step(self.info))
             ctl = dict(flow.last_controls)
         return out, ctl
 
@@ -679,7 +682,8 @@ class PreviewSession:
         out, ctl = self._run_chain(fr, index)
         flow = self.flow
         views = flow.make_views((fr.y, fr.cb, fr.cr), out, step=view_step(self.info),
-                                in_legal=self.in_legal, source_rgb=split)
+                                in_legal=self.in_legal, in_bits=self.in_bits,
+                                source_rgb=split)
         self._set_scope_step(views[1])
         bypass = token[2]
         numbers = self.composer.measure(flow, views[1], tuple(self.view.monitors),
@@ -1064,6 +1068,7 @@ def run_preview(chain_path, source, *, snapshot=None, at_s=None, controls=(), ex
             src.close()
             session.in_legal = not is_full_range(src.info)
             with PlaneClipSource(src.info, start_s=start, loop=True) as psrc:
+                session.in_bits = psrc.bits
                 return _Player(cv2, session, psrc, max_frames=max_frames).run()
         return _Player(cv2, session, src, max_frames=max_frames).run()
 

@@ -31,7 +31,7 @@ import pytest
 from livecurve.config.chainfile import load_chain
 from livecurve.engine.fused import FusedChain, sampled_volts
 from livecurve.engine.pipeline import FrameEngine
-from livecurve.errors import SolverError
+from livecurve.errors import MediaError, SolverError
 from livecurve.outputs.demo import chain_path
 from livecurve.signal.levels import volts_to_codes
 
@@ -62,15 +62,21 @@ def _picture(seed: int, h: int = H, w: int = W, *, ch: int | None = None,
     return tuple(np.clip(np.rint(a), 1, 254).astype(np.uint8) for a in (y, cb, cr))
 
 
-def _reference(engine: FrameEngine, spec, y, cb, cr, controls=None):
-    """The reference path on 4:4:4 planes (module docstring)."""
+def _reference(engine: FrameEngine, spec, y, cb, cr, controls=None, *, bits: int = 8,
+               legal: bool = True):
+    """The reference path on 4:4:4 planes (module docstring); the input codes at *bits*
+    bits, legal or full range."""
     codes = np.stack([y, cb, cr], -1).astype(np.float64)
     if spec.space == "rgb":
-        rgb = colour.YCbCr_to_RGB(codes, K=K709, in_bits=8, in_legal=True, in_int=True)
+        rgb = colour.YCbCr_to_RGB(codes, K=K709, in_bits=bits, in_legal=legal, in_int=True)
         v = rgb * 0.7 - 0.35
     else:
-        n = np.stack([(codes[..., 0] - 16) / 219, (codes[..., 1] - 128) / 224,
-                      (codes[..., 2] - 128) / 224], -1)   # BT.709 code levels, 8-bit legal
+        # BT.709 code levels (colour-science's ranges: legal Y′ 16·2^(b−8) … 235·2^(b−8),
+        # C 16·2^(b−8) … 240·2^(b−8); full range Y′ 0 … 2^b − 1, C 0.5 … 2^b − 0.5)
+        y_lo, y_hi, c_lo, c_hi = colour.models.rgb.ycbcr.ranges_YCbCr(bits, legal, True)
+        c_mid, c_span = (c_lo + c_hi) / 2, c_hi - c_lo
+        n = np.stack([(codes[..., 0] - y_lo) / (y_hi - y_lo), (codes[..., 1] - c_mid) / c_span,
+                      (codes[..., 2] - c_mid) / c_span], -1)
         v = np.stack([n[..., 0] * 0.7 - 0.35, n[..., 1] * 0.7, n[..., 2] * 0.7], -1)
     planes = np.ascontiguousarray(np.moveaxis(v, -1, 0), dtype=np.float32)
     out = engine.process(planes, controls=controls or {})
@@ -236,11 +242,15 @@ def test_fused_follows_a_rebuilt_engine():
     _assert_close(after, _reference(engine, spec, y, cb, cr), "after a knob turn")
 
 
-def test_sampled_volts_match_the_reference_conversion():
+@pytest.mark.parametrize("bits, legal", [(8, True), (8, False), (10, True), (12, True)])
+def test_sampled_volts_match_the_reference_conversion(bits, legal):
     y, cb, cr = _picture(4)
-    v = sampled_volts(y, cb, cr, space="rgb", standard="bt709", step=4)
+    if bits > 8:
+        y, cb, cr = _deep((y, cb, cr), bits, seed=4)
+    v = sampled_volts(y, cb, cr, space="rgb", standard="bt709", step=4, in_legal=legal,
+                      in_bits=bits)
     codes = np.stack([y, cb, cr], -1)[::4, ::4].astype(np.float64)
-    rgb = colour.YCbCr_to_RGB(codes, K=K709, in_bits=8, in_legal=True, in_int=True)
+    rgb = colour.YCbCr_to_RGB(codes, K=K709, in_bits=bits, in_legal=legal, in_int=True)
     assert np.allclose(v, np.moveaxis(rgb * 0.7 - 0.35, -1, 0), atol=2e-6)
 
 
@@ -346,3 +356,90 @@ def test_fused_line_step_runs_only_the_lines_asked_for(name, sub):
             assert np.array_equal(got[i], want[i])
     with pytest.raises(ValueError, match="line_step"):
         _fused(engine, spec).process(y, cb, cr, line_step=0)
+
+
+# ------------------------------------------------------------------ deeper and full-range input
+
+
+def _deep(planes, bits: int, seed: int):
+    """8-bit planes as *bits*-bit codes (×2^(bits−8)) with the low bits filled at random,
+    in uint16 as a 10- or 12-bit decoder hands them over."""
+    rng = np.random.default_rng(seed)
+    k = 1 << (bits - 8)
+    return tuple((a.astype(np.uint16) * k + rng.integers(0, k, a.shape)).astype(np.uint16)
+                 for a in planes)
+
+
+@pytest.mark.parametrize("name", DEMOS)
+@pytest.mark.parametrize("bits", [10, 12])
+@pytest.mark.parametrize("modulated", [False, True])
+def test_fused_takes_10_and_12_bit_planes(name, bits, modulated):
+    """10-/12-bit codes (uint16 planes) through the kernel equal the reference path read at
+    that depth (colour-science's YCbCr_to_RGB with in_bits), within the converter's
+    quantisation; the output is 8-bit."""
+    spec = load_chain(chain_path(name))
+    knob = KNOBS[name]
+    engine = FrameEngine(spec, modulated=[knob] if modulated else [],
+                         pixel_period_s=1 / 74.25e6)
+    controls = {}
+    if modulated:
+        ls = spec.live[knob]
+        controls[knob] = ls.lo + (ls.hi - ls.lo) * (0.5 + 0.5 * np.cos(np.arange(H) / 2.0))
+    y, cb, cr = _deep(_picture(7), bits, seed=bits)
+    fc = FusedChain(engine, space=spec.space, standard="bt709",
+                    converter_bits=spec.converter_bits, converter_legal=spec.converter_legal,
+                    in_bits=bits)
+    got = fc.process(y, cb, cr, controls=controls)
+    assert all(a.dtype == np.uint8 for a in got)
+    want = _reference(engine, spec, y, cb, cr, controls, bits=bits)
+    _assert_close(got, want, f"{name} at {bits} bits modulated={modulated}")
+    # the low bits matter: the same picture without them comes out differently somewhere
+    k = 1 << (bits - 8)
+    coarse = fc.process(*((a // k) * k for a in (y, cb, cr)), controls=controls)
+    assert any(not np.array_equal(a, b) for a, b in zip(got, coarse, strict=True))
+
+
+@pytest.mark.parametrize("name", ["film_shoulder", "night_knee"])
+def test_fused_takes_full_range_planes(name):
+    """Full-range (``pc``, yuvj) 8-bit codes: the same reference read as full range."""
+    spec = load_chain(chain_path(name))
+    engine = FrameEngine(spec, pixel_period_s=1 / 74.25e6)
+    y, cb, cr = (np.clip(a.astype(np.int64) * 255 // 254, 0, 255).astype(np.uint8)
+                 for a in _picture(8))
+    got = FusedChain(engine, space=spec.space, standard="bt709",
+                     converter_bits=spec.converter_bits, converter_legal=spec.converter_legal,
+                     in_legal=False).process(y, cb, cr)
+    _assert_close(got, _reference(engine, spec, y, cb, cr, legal=False), f"{name} full range")
+
+
+@pytest.mark.parametrize("bits, legal, codes, want", [
+    # BT.709 code levels (REFERENCES.md): 10-bit black 64, white 940, chroma zero 512
+    (10, True, (64, 940, 512), (16, 235, 128)),
+    (12, True, (256, 3760, 2048), (16, 235, 128)),
+    # full range (ITU-T H.273 / colour-science's ranges): Y′ 0…255, chroma zero at 128
+    (8, False, (0, 255, 128), (16, 235, 128)),
+])
+def test_bypass_recodes_deep_and_full_range_planes_to_8_bit_legal(bits, legal, codes, want):
+    """With the chain bypassed the source comes out as it is, at the encoder's 8-bit legal
+    levels: black to 16, white to 235, zero chroma to 128."""
+    spec = load_chain(chain_path("film_shoulder"))
+    fc = FusedChain(FrameEngine(spec), space="rgb", standard="bt709", in_legal=legal,
+                    in_bits=bits)
+    dt = np.uint8 if bits == 8 else np.uint16
+    lo, hi, mid = codes
+    y = np.array([[lo, hi]], dt)
+    c = np.array([[mid, mid]], dt)
+    oy, ocb, ocr = fc.passthrough(y, c, c)
+    assert oy.tolist() == [[want[0], want[1]]]
+    assert ocb.tolist() == [[want[2], want[2]]] and ocr.tolist() == [[want[2], want[2]]]
+    # 8-bit legal input is copied untouched
+    fc8 = FusedChain(FrameEngine(spec), space="rgb", standard="bt709")
+    p = _picture(9)
+    assert all(np.array_equal(a, b) for a, b in zip(fc8.passthrough(*p), p, strict=True))
+
+
+def test_planes_of_the_wrong_type_are_refused():
+    spec = load_chain(chain_path("film_shoulder"))
+    fc = FusedChain(FrameEngine(spec), space="rgb", standard="bt709", in_bits=10)
+    with pytest.raises(MediaError, match="uint16"):
+        fc.process(*_picture(1))

@@ -290,3 +290,27 @@ def test_views_made_ahead_are_never_written_over(rgb_frames):
     assert not np.array_equal(bypassed, first)
     s.flow.bypass = False
     np.testing.assert_array_equal(s.render(ready, fr.index, **STATUS), first)
+
+
+@pytest.mark.parametrize("bypass", [False, True])
+def test_a_10_bit_clip_draws_as_its_8_bit_twin(clip_frames, bypass):
+    """10-bit planes holding each 8-bit code ×4 (BT.709 code levels: the same level at
+    either depth) draw the same window as the 8-bit planes, made ahead or not, bypassed or
+    not: the depth is read, not mistaken for 8-bit codes."""
+    import dataclasses
+    info, frames = clip_frames
+    fr = frames[1]
+    deep = dataclasses.replace(fr, **{p: getattr(fr, p).astype(np.uint16) * 4
+                                      for p in ("y", "cb", "cr")})
+    own = _session(info)
+    own.flow.bypass = bypass
+    want = own.render_planes(fr, fr.index, **STATUS).copy()
+    s = _session(info)
+    s.flow.bypass = bypass
+    s.in_bits = 10
+    np.testing.assert_array_equal(s.render_planes(deep, fr.index, **STATUS), want)
+    s2 = _session(info)
+    s2.flow.bypass = bypass
+    s2.in_bits = 10
+    ready = s2.prepare(fr.index, deep)
+    np.testing.assert_array_equal(s2.render_planes(ready, fr.index, **STATUS), want)
