@@ -281,20 +281,41 @@ class FrameFlow:
             self.last_controls = ctl
         return self.rgb_out
 
-    def process_fresh(self, rgb: np.ndarray, frame_index: int) -> tuple:
+    def process_fresh(self, rgb: np.ndarray, frame_index: int, *, step: int = 1) -> tuple:
         """As :meth:`process`, into new arrays and without touching the flow's own (another
         thread may make frames ahead with it): ``(planes_in, planes_out, rgb_out, controls
-        used)``, the controls None when bypassed."""
-        h, w = rgb.shape[:2]
+        used)``, the controls None when bypassed.
+
+        *step* > 1 makes a view for a window that reads every *step*-th line and sample:
+        only those lines go through the chain (each whole, as line filters run along a
+        line, so they come out as in a full pass), and the arrays returned hold every
+        *step*-th sample of them, shape (3, ⌈H/step⌉, ⌈W/step⌉)."""
+        if isinstance(step, bool) or int(step) != step or step < 1:
+            raise ValueError(f"step must be a whole number >= 1, not {step!r}")
+        step = int(step)
+        lines = rgb if step == 1 else np.ascontiguousarray(rgb[::step])
+        h, w = lines.shape[:2]
         pin = np.empty((3, h, w), dtype=np.float32)
         pout = np.empty((3, h, w), dtype=np.float32)
-        rout = np.empty((h, w, 3), dtype=self.out_dtype)
-        ctl = self._process_into(rgb, frame_index, pin, pout, rout)
+        if step == 1:
+            rout = np.empty((h, w, 3), dtype=self.out_dtype)
+            ctl = self._process_into(lines, frame_index, pin, pout, rout)
+            return pin, pout, rout, ctl
+        ctl = self._process_into(lines, frame_index, pin, pout, None, line_step=step)
+        pin = np.ascontiguousarray(pin[:, :, ::step])
+        pout = np.ascontiguousarray(pout[:, :, ::step])
+        rout = volts_to_codes(pout, space=self.spec.space, standard=self.standard,
+                              converter_bits=self.spec.converter_bits,
+                              converter_legal=self.spec.converter_legal,
+                              out_dtype=self.out_dtype)
         return pin, pout, rout, ctl
 
-    def _process_into(self, rgb, frame_index: int, planes_in, planes_out, rgb_out):
-        """codes → volts → chain → output codes into the given arrays; returns the control
-        values used (None when bypassed)."""
+    def _process_into(self, rgb, frame_index: int, planes_in, planes_out, rgb_out, *,
+                      line_step: int = 1):
+        """codes → volts → chain → output codes into the given arrays (no codes when
+        *rgb_out* is None); returns the control values used (None when bypassed).  With
+        *line_step* > 1, *rgb* holds every *line_step*-th line of the frame and each line's
+        controls are those of its place in the frame."""
         codes_to_volts(rgb, space=self.spec.space, standard=self.standard, bits=None,
                        out=planes_in)
         ctl = None
@@ -304,9 +325,14 @@ class FrameFlow:
             if self.follower is not None:
                 self.follower.maybe_update(self.engine, frame_index / self.fps)
             ctl = self.control_values(frame_index)
-            self.engine.process(planes_in, controls=ctl, out=planes_out)
-        volts_to_codes(planes_out, space=self.spec.space, standard=self.standard,
-                       converter_bits=self.spec.converter_bits,
-                       converter_legal=self.spec.converter_legal, out_dtype=self.out_dtype,
-                       out=rgb_out)
+            run = ctl
+            if line_step > 1:   # per-line (H,) and per-pixel (H, W) values: the lines run
+                run = {k: v[::line_step] if isinstance(v, np.ndarray) and v.ndim else v
+                       for k, v in ctl.items()}
+            self.engine.process(planes_in, controls=run, out=planes_out)
+        if rgb_out is not None:
+            volts_to_codes(planes_out, space=self.spec.space, standard=self.standard,
+                           converter_bits=self.spec.converter_bits,
+                           converter_legal=self.spec.converter_legal,
+                           out_dtype=self.out_dtype, out=rgb_out)
         return ctl

@@ -569,6 +569,12 @@ class PreviewSession:
         if ready is not None and ready.token == self._token(index):
             self.flow.show_views(ready.views)        # made ahead on the decoder thread
             ctl_used, numbers = ready.controls, ready.numbers
+            if ready.views[3] is not None:
+                rgb = ready.views[3]
+        elif view_step(self.info) > 1:
+            views, ctl_used = self._rgb_views(rgb, index)
+            self.flow.show_views(views)
+            rgb = views[3]
         else:
             with self._chain_lock:
                 self.flow.process(rgb, index)
@@ -698,13 +704,23 @@ class PreviewSession:
         one-pass kernel does not take): the whole frame through the chain, into arrays of
         its own."""
         flow = self.flow
-        with self._chain_lock:
-            pin, pout, rout, ctl = flow.process_fresh(fr.rgb, index)
-        ctl = {} if ctl is None else ctl
+        views, ctl = self._rgb_views(fr.rgb, index)
+        pin, pout, rout, _ = views
         bypass = token[2]
         numbers = self.composer.measure(flow, pout, tuple(self.view.monitors),
                                         planes_in=pin, controls={} if bypass else ctl)
-        return ReadyFrame(fr, rout, ctl, token, (pin, pout, rout, None), numbers)
+        return ReadyFrame(fr, rout, ctl, token, views, numbers)
+
+    def _rgb_views(self, rgb: np.ndarray, index: int) -> tuple:
+        """An R′G′B′ frame through the chain as the window reads it: every
+        :func:`view_step`-th line and sample (only those lines run; at 1080p30 every
+        second one), as ``((planes_in, planes_out, rgb_out, source R′G′B′ at the same
+        size or None at full size), controls used)``."""
+        step = view_step(self.info)
+        with self._chain_lock:
+            pin, pout, rout, ctl = self.flow.process_fresh(rgb, index, step=step)
+        src = np.ascontiguousarray(rgb[::step, ::step]) if step > 1 else None
+        return (pin, pout, rout, src), ({} if ctl is None else ctl)
 
     def _check_live_inputs(self) -> None:
         """Report a lost device, overflows or starved reads in the window and on the console

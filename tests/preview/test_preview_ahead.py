@@ -314,3 +314,53 @@ def test_a_10_bit_clip_draws_as_its_8_bit_twin(clip_frames, bypass):
     s2.in_bits = 10
     ready = s2.prepare(fr.index, deep)
     np.testing.assert_array_equal(s2.render_planes(ready, fr.index, **STATUS), want)
+
+
+@pytest.fixture(scope="module")
+def rgb_frames_1080(rgb_frames):
+    """The demo clip's R′G′B′ frames at 1920×1080 (each sample repeated 3 × 2 ways: 720p
+    → 1080p is 3/2; near enough for a picture with detail on every line)."""
+    import dataclasses
+    info, frames = rgb_frames
+    big = []
+    for fr in frames:
+        a = np.repeat(np.repeat(fr.rgb, 3, axis=0), 3, axis=1)[::2, ::2]
+        big.append(dataclasses.replace(fr, rgb=np.ascontiguousarray(a[:1080, :1920])))
+    return dataclasses.replace(info, width=1920, height=1080), big
+
+
+def test_a_1080p30_rgb_frame_runs_only_the_lines_the_window_reads(rgb_frames_1080):
+    """At 1080p30 the window reads every second line and sample; only those lines go
+    through the chain, each whole, so they equal a full pass's lines bit for bit (with
+    night_knee's knee driven line by line from the soundtrack)."""
+    from livecurve.preview.window import view_step
+    info, frames = rgb_frames_1080
+    assert view_step(info) == 2
+    fr = frames[1]
+    s = _session(info, "night_knee")
+    full = s.flow.process_fresh(fr.rgb, fr.index)
+    part = s.flow.process_fresh(fr.rgb, fr.index, step=2)
+    assert any(np.ndim(v) == 1 and np.ptp(v) > 0 for v in part[3].values())  # per line
+    for a, b in zip(full[:2], part[:2], strict=True):
+        np.testing.assert_array_equal(a[:, ::2, ::2], b)
+    np.testing.assert_array_equal(full[2][::2, ::2], part[2])
+
+
+@pytest.mark.parametrize("split", [False, True])
+def test_a_large_rgb_frame_made_ahead_draws_what_the_window_would_draw(rgb_frames_1080,
+                                                                      monkeypatch, split):
+    info, frames = rgb_frames_1080
+    fr = frames[2]
+    own = _session(info, "night_knee")
+    own.view.split = split
+    want = own.render(fr.rgb, fr.index, **STATUS).copy()
+    assert own.flow.planes_out.shape == (3, 540, 960)           # the window's reading
+    s = _session(info, "night_knee")
+    s.view.split = split
+    ready = s.prepare(fr.index, fr)
+    calls = []
+    real = s.flow.process_fresh
+    monkeypatch.setattr(s.flow, "process_fresh",
+                        lambda *a, **k: calls.append(a[1]) or real(*a, **k))
+    np.testing.assert_array_equal(s.render(ready, fr.index, **STATUS), want)
+    assert calls == []
